@@ -1,0 +1,237 @@
+"""Register machine that evaluates model programs inside compiled loops.
+
+A model's right-hand side, Jacobian values, intermediate quantities and event
+functions are each compiled (by ``engine.program``) into a *program*: a plain
+``int32`` array of instructions over a ``float64`` register file. One numba
+function, compiled once and cached on disk, runs every program of every model,
+so a long-running worker never compiles per model (compiled code is never
+freed, and exec-built functions cannot be disk-cached).
+
+Instruction layout: ``code[k] = (op, dst, a, b, c)``.
+
+- ``dst`` is a register index, except for ``OUT`` where it is the index in the
+  output array.
+- ``a``, ``b``, ``c`` are register indices, except for the load ops where ``a``
+  is an index into ``consts``, ``y`` or ``p``, and for ``POWI`` where ``b`` is
+  the (signed) integer exponent.
+
+The engine's integrators call :func:`run` through :class:`Kernel`, a named tuple
+of arrays, never through Python objects.
+"""
+from __future__ import annotations
+
+import math
+from typing import NamedTuple
+
+import numpy as np
+from numba import njit
+
+# Opcodes. Numbers are part of the program format (programs are cached by
+# content hash), so append new ones; never renumber.
+CONST, STATE, PARAM, TIME, OUT = 0, 1, 2, 3, 4
+ADD, SUB, MUL, DIV, NEG = 5, 6, 7, 8, 9
+POW, POWI, SQUARE = 10, 11, 12
+EXP, LOG, LOG10, SQRT = 13, 14, 15, 16
+SIN, COS, TAN, SINH, COSH, TANH, ABS = 17, 18, 19, 20, 21, 22, 23
+MIN, MAX, STEP = 24, 25, 26
+LT, LE, GT, GE, EQ, NE = 27, 28, 29, 30, 31, 32
+AND, OR, NOT, SELECT = 33, 34, 35, 36
+MULADD = 37  # dst = a * b + c (fused form used by mass-action rates)
+SIGN = 38
+
+N_FIELDS = 5
+
+OPCODE_NAMES = {
+    value: name
+    for name, value in dict(globals()).items()
+    if name.isupper() and isinstance(value, int) and name not in ("N_FIELDS",)
+}
+
+
+class Kernel(NamedTuple):
+    """Everything an integrator needs to evaluate one prepared model.
+
+    All fields are numpy arrays or ints so numba compiles one specialisation
+    for every model. ``jac_rows``/``jac_cols`` give the (row, column) of each
+    Jacobian value written by ``jac_code`` (COO pattern, row-major sorted).
+    """
+
+    n: int                 # number of states
+    n_regs: int            # register file size shared by all programs
+    consts: np.ndarray     # float64 constants
+    rhs_code: np.ndarray   # int32 (k, 5): writes out[0:n]
+    jac_code: np.ndarray   # int32 (k, 5): writes vals[0:nnz]
+    jac_rows: np.ndarray   # int64 (nnz,)
+    jac_cols: np.ndarray   # int64 (nnz,)
+    aux_code: np.ndarray   # int32 (k, 5): writes intermediate quantities
+    n_aux: int
+    event_code: np.ndarray  # int32 (k, 5): writes event function values
+    n_events: int
+
+
+@njit(cache=True, nogil=True)
+def run(code, consts, t, y, p, regs, out):
+    """Execute one program: read ``t``, ``y``, ``p``; write ``out``."""
+    for k in range(code.shape[0]):
+        op = code[k, 0]
+        d = code[k, 1]
+        a = code[k, 2]
+        if op == MUL:
+            regs[d] = regs[a] * regs[code[k, 3]]
+        elif op == STATE:
+            regs[d] = y[a]
+        elif op == PARAM:
+            regs[d] = p[a]
+        elif op == CONST:
+            regs[d] = consts[a]
+        elif op == ADD:
+            regs[d] = regs[a] + regs[code[k, 3]]
+        elif op == SUB:
+            regs[d] = regs[a] - regs[code[k, 3]]
+        elif op == OUT:
+            out[d] = regs[a]
+        elif op == MULADD:
+            regs[d] = regs[a] * regs[code[k, 3]] + regs[code[k, 4]]
+        elif op == NEG:
+            regs[d] = -regs[a]
+        elif op == DIV:
+            regs[d] = regs[a] / regs[code[k, 3]]
+        elif op == SQUARE:
+            x = regs[a]
+            regs[d] = x * x
+        elif op == POWI:
+            regs[d] = _powi(regs[a], code[k, 3])
+        elif op == POW:
+            regs[d] = _pow(regs[a], regs[code[k, 3]])
+        elif op == EXP:
+            regs[d] = math.exp(min(regs[a], 709.0))
+        elif op == TIME:
+            regs[d] = t
+        elif op == LOG:
+            regs[d] = _log(regs[a])
+        elif op == LOG10:
+            x = regs[a]
+            regs[d] = math.log10(x) if x > 0.0 else (-math.inf if x == 0.0 else math.nan)
+        elif op == SQRT:
+            x = regs[a]
+            regs[d] = math.sqrt(x) if x >= 0.0 else math.nan
+        elif op == SIN:
+            regs[d] = math.sin(regs[a])
+        elif op == COS:
+            regs[d] = math.cos(regs[a])
+        elif op == TAN:
+            regs[d] = math.tan(regs[a])
+        elif op == SINH:
+            regs[d] = math.sinh(min(max(regs[a], -709.0), 709.0))
+        elif op == COSH:
+            regs[d] = math.cosh(min(max(regs[a], -709.0), 709.0))
+        elif op == TANH:
+            regs[d] = math.tanh(regs[a])
+        elif op == ABS:
+            regs[d] = abs(regs[a])
+        elif op == SIGN:
+            x = regs[a]
+            regs[d] = 1.0 if x > 0.0 else (-1.0 if x < 0.0 else 0.0)
+        elif op == MIN:
+            regs[d] = min(regs[a], regs[code[k, 3]])
+        elif op == MAX:
+            regs[d] = max(regs[a], regs[code[k, 3]])
+        elif op == STEP:
+            regs[d] = 1.0 if regs[a] >= 0.0 else 0.0
+        elif op == LT:
+            regs[d] = 1.0 if regs[a] < regs[code[k, 3]] else 0.0
+        elif op == LE:
+            regs[d] = 1.0 if regs[a] <= regs[code[k, 3]] else 0.0
+        elif op == GT:
+            regs[d] = 1.0 if regs[a] > regs[code[k, 3]] else 0.0
+        elif op == GE:
+            regs[d] = 1.0 if regs[a] >= regs[code[k, 3]] else 0.0
+        elif op == EQ:
+            regs[d] = 1.0 if regs[a] == regs[code[k, 3]] else 0.0
+        elif op == NE:
+            regs[d] = 1.0 if regs[a] != regs[code[k, 3]] else 0.0
+        elif op == AND:
+            regs[d] = 1.0 if (regs[a] != 0.0 and regs[code[k, 3]] != 0.0) else 0.0
+        elif op == OR:
+            regs[d] = 1.0 if (regs[a] != 0.0 or regs[code[k, 3]] != 0.0) else 0.0
+        elif op == NOT:
+            regs[d] = 1.0 if regs[a] == 0.0 else 0.0
+        elif op == SELECT:
+            regs[d] = regs[code[k, 3]] if regs[a] != 0.0 else regs[code[k, 4]]
+
+
+@njit(cache=True, inline="always")
+def _log(x):
+    if x > 0.0:
+        return math.log(x)
+    if x == 0.0:
+        return -math.inf
+    return math.nan
+
+
+@njit(cache=True, inline="always")
+def _powi(x, n):
+    if n < 0:
+        x = 1.0 / x
+        n = -n
+    r = 1.0
+    while n:
+        if n & 1:
+            r *= x
+        x *= x
+        n >>= 1
+    return r
+
+
+@njit(cache=True, inline="always")
+def _pow(x, e):
+    if x < 0.0 and e != math.floor(e):
+        return math.nan
+    if x == 0.0 and e < 0.0:
+        return math.inf
+    return x ** e
+
+
+@njit(cache=True, nogil=True)
+def rhs(kernel, t, y, p, regs, out):
+    """dy/dt into ``out`` (length n)."""
+    run(kernel.rhs_code, kernel.consts, t, y, p, regs, out)
+
+
+@njit(cache=True, nogil=True)
+def jac_values(kernel, t, y, p, regs, vals):
+    """Nonzero Jacobian values into ``vals`` in the kernel's COO order."""
+    run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
+
+
+@njit(cache=True, nogil=True)
+def jac_dense(kernel, t, y, p, regs, vals, J):
+    """Dense Jacobian into ``J`` (n x n), via the sparse values."""
+    run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
+    J[:, :] = 0.0
+    for k in range(vals.shape[0]):
+        J[kernel.jac_rows[k], kernel.jac_cols[k]] = vals[k]
+
+
+@njit(cache=True, nogil=True)
+def aux(kernel, t, y, p, regs, out):
+    """Intermediate quantities into ``out`` (length n_aux)."""
+    run(kernel.aux_code, kernel.consts, t, y, p, regs, out)
+
+
+@njit(cache=True, nogil=True)
+def events(kernel, t, y, p, regs, out):
+    """Event function values into ``out`` (length n_events)."""
+    run(kernel.event_code, kernel.consts, t, y, p, regs, out)
+
+
+def empty_code() -> np.ndarray:
+    return np.zeros((0, N_FIELDS), dtype=np.int32)
+
+
+def disassemble(code: np.ndarray) -> list[str]:
+    """Readable listing of a program, for debugging and DEVELOPERS.md examples."""
+    return [
+        f"{OPCODE_NAMES.get(int(row[0]), '?'):7s} r{row[1]} <- {row[2]} {row[3]} {row[4]}"
+        for row in code
+    ]
