@@ -1,0 +1,32 @@
+# Two commands do all set-up on a fresh machine: `make run` and `make test`.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+export NUMBA_CACHE_DIR := $(CURDIR)/var/numba-cache
+
+.PHONY: run test install bench bench-quick clean
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+install: $(STAMP)
+
+run: $(STAMP)
+	$(BIN)/stifflane up
+
+test: $(STAMP)
+	$(BIN)/stifflane warm
+	$(BIN)/python -m pytest
+
+bench: $(STAMP)
+	$(BIN)/python -m bench.run --full
+
+bench-quick: $(STAMP)
+	$(BIN)/python -m bench.run --quick
+
+clean:
+	rm -rf $(VENV) var .pytest_cache

@@ -1,0 +1,1 @@
+"""The ``stifflane`` command: starts each part of the stack (and, later, talks to the API)."""

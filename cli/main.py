@@ -1,0 +1,191 @@
+"""``stifflane``: start the stack, or one part of it.
+
+    stifflane up        embedded Redis + one worker + API and dashboard, then the demo job
+    stifflane redis     only the embedded Redis (foreground)
+    stifflane api       only the API and dashboard (gunicorn)
+    stifflane worker    only a worker (Celery, one process per core by default)
+    stifflane warm      load or compile the engine's kernels once (done by 'up' and 'worker')
+
+Exit codes: 0 success, 1 a part failed to start, 2 bad arguments, 130 interrupted.
+"""
+from __future__ import annotations
+
+import argparse
+import json
+import os
+import signal
+import subprocess
+import sys
+import time
+import urllib.error
+import urllib.request
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+DEFAULT_API_PORT = 8750
+DEFAULT_REDIS_PORT = 6390
+DEMO_JOB = ROOT / "examples" / "jobs" / "lakeside_demo.json"
+
+
+def _env(redis_url: str | None = None) -> dict:
+    env = dict(os.environ)
+    if redis_url:
+        env["REDIS_URL"] = redis_url
+    env.setdefault("NUMBA_CACHE_DIR", str(ROOT / "var" / "numba-cache"))
+    env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(ROOT), env.get("PYTHONPATH")]))
+    return env
+
+
+def api_command(host: str, port: int, workers: int = 2) -> list[str]:
+    return [sys.executable, "-m", "gunicorn", "--bind", f"{host}:{port}", "--workers", str(workers),
+            "--threads", "4", "--timeout", "60", "--graceful-timeout", "5",
+            "--access-logfile", "-", "service:create_app()"]
+
+
+def worker_command(concurrency: int, queues: str | None = None) -> list[str]:
+    from jobs.settings import Settings
+
+    queues = queues or Settings.from_env().interactive_queue
+    return [sys.executable, "-m", "celery", "-A", "worker.celery_app", "worker", "--loglevel", "INFO",
+            "-c", str(concurrency), "-Q", queues, "--max-tasks-per-child", "500",
+            "--max-memory-per-child", "2000000", "-n", f"stifflane-{os.getpid()}@%h"]
+
+
+def cmd_warm(_args) -> int:
+    started = time.perf_counter()
+    from engine.warmup import warm_up
+
+    warm_up()
+    print(f"engine kernels ready in {time.perf_counter() - started:.1f} s")
+    return 0
+
+
+def cmd_redis(args) -> int:
+    from cli.redis_server import start_redis
+
+    proc = start_redis(args.port, Path(args.data))
+    print(f"redis on redis://127.0.0.1:{args.port}/0 (data in {args.data}); Ctrl-C stops it")
+    try:
+        return proc.wait()
+    except KeyboardInterrupt:
+        proc.terminate()
+        proc.wait(10)
+        return 130
+
+
+def cmd_api(args) -> int:
+    os.execvpe(sys.executable, api_command(args.host, args.port, args.workers), _env())
+
+
+def cmd_worker(args) -> int:
+    env = _env()
+    subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True)
+    os.execvpe(sys.executable, worker_command(args.concurrency), env)
+
+
+def _wait_http(url: str, seconds: float) -> bool:
+    deadline = time.time() + seconds
+    while time.time() < deadline:
+        try:
+            with urllib.request.urlopen(url, timeout=2):
+                return True
+        except (urllib.error.URLError, ConnectionError, OSError):
+            time.sleep(0.2)
+    return False
+
+
+def submit_demo(base: str) -> None:
+    body = DEMO_JOB.read_bytes()
+    req = urllib.request.Request(base + "/v1/jobs", data=body, method="POST",
+                                 headers={"Content-Type": "application/json"})
+    with urllib.request.urlopen(req, timeout=10) as resp:
+        job = json.load(resp)
+    job_url = base + job["links"]["self"]
+    print(f"demo job submitted (invented Lakeside Lab scenario): {job_url}")
+    deadline = time.time() + 120
+    while time.time() < deadline:
+        with urllib.request.urlopen(job_url, timeout=10) as resp:
+            view = json.load(resp)
+        if view["state"] in ("succeeded", "failed", "cancelled"):
+            print(f"demo job {view['state']}: {view.get('message') or ''}")
+            if view["state"] == "succeeded":
+                print(f"  result (JSON): {base}{view['links']['result']}")
+                print(f"  result (CSV):  {base}{view['links']['result']}?format=csv")
+            return
+        time.sleep(0.5)
+    print("demo job still running after 120 s; watch it on the dashboard")
+
+
+def cmd_up(args) -> int:
+    procs: list[tuple[str, subprocess.Popen]] = []
+    redis_url = os.environ.get("REDIS_URL")
+    try:
+        if not redis_url:
+            from cli.redis_server import start_redis
+
+            procs.append(("redis", start_redis(args.redis_port, ROOT / "var" / "redis")))
+            redis_url = f"redis://127.0.0.1:{args.redis_port}/0"
+        env = _env(redis_url)
+        print(f"redis: {redis_url}")
+        subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True, cwd=ROOT)
+        procs.append(("worker", subprocess.Popen(worker_command(args.concurrency), env=env, cwd=ROOT)))
+        procs.append(("api", subprocess.Popen(api_command("127.0.0.1", args.port), env=env, cwd=ROOT)))
+        base = f"http://127.0.0.1:{args.port}"
+        if not _wait_http(base + "/v1/health", 30):
+            print("the API did not come up within 30 s", file=sys.stderr)
+            return 1
+        print(f"dashboard: {base}/   API: {base}/v1   OpenAPI: {base}/v1/openapi.json")
+        if not args.no_demo:
+            submit_demo(base)
+        print("stack running; Ctrl-C stops every process")
+        while all(p.poll() is None for _, p in procs):
+            time.sleep(0.5)
+        dead = [name for name, p in procs if p.poll() is not None]
+        print(f"stopped because {', '.join(dead)} exited", file=sys.stderr)
+        return 1
+    except KeyboardInterrupt:
+        return 130
+    finally:
+        for name, p in reversed(procs):
+            if p.poll() is None:
+                p.send_signal(signal.SIGTERM)
+        for name, p in reversed(procs):
+            try:
+                p.wait(15)
+            except subprocess.TimeoutExpired:
+                p.kill()
+
+
+def parser() -> argparse.ArgumentParser:
+    ap = argparse.ArgumentParser(prog="stifflane", description=__doc__,
+                                 formatter_class=argparse.RawDescriptionHelpFormatter)
+    sub = ap.add_subparsers(dest="command", required=True)
+    up = sub.add_parser("up", help="start the whole stack locally and run the demo job")
+    up.add_argument("--port", type=int, default=DEFAULT_API_PORT)
+    up.add_argument("--redis-port", type=int, default=DEFAULT_REDIS_PORT)
+    up.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
+    up.add_argument("--no-demo", action="store_true", help="do not submit the demo job")
+    up.set_defaults(func=cmd_up)
+    r = sub.add_parser("redis", help="start only the embedded Redis")
+    r.add_argument("--port", type=int, default=DEFAULT_REDIS_PORT)
+    r.add_argument("--data", default=str(ROOT / "var" / "redis"))
+    r.set_defaults(func=cmd_redis)
+    a = sub.add_parser("api", help="start only the API and dashboard (gunicorn)")
+    a.add_argument("--host", default="127.0.0.1")
+    a.add_argument("--port", type=int, default=DEFAULT_API_PORT)
+    a.add_argument("--workers", type=int, default=2)
+    a.set_defaults(func=cmd_api)
+    w = sub.add_parser("worker", help="start only a worker")
+    w.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
+    w.set_defaults(func=cmd_worker)
+    sub.add_parser("warm", help="load or compile the engine kernels").set_defaults(func=cmd_warm)
+    return ap
+
+
+def main(argv: list[str] | None = None) -> int:
+    args = parser().parse_args(argv)
+    return args.func(args) or 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,68 @@
+"""The Redis keyspace: every key the project writes is named here and only here.
+
+| key                          | type   | holds                                   | TTL            |
+|------------------------------|--------|-----------------------------------------|----------------|
+| {p}:job:{id}                 | hash   | job record (state, rev, times, spec...) | result TTL     |
+| {p}:result:{id}              | string | compressed result blob (jobs/blob.py)   | result TTL     |
+| {p}:index:all                | zset   | every job id, lexicographic = newest    | refreshed      |
+| {p}:index:state:{state}      | zset   | job ids by state                        | refreshed      |
+| {p}:worker:{name}            | string | worker heartbeat (health endpoint)      | 30 s           |
+
+Job ids sort by creation time (hex microseconds first), so the indexes are
+lexicographic sorted sets with score 0 and pagination is ZRANGEBYLEX.
+"""
+from __future__ import annotations
+
+import os
+import re
+import threading
+import time
+
+STATES = ("queued", "running", "succeeded", "failed", "cancelled")
+TERMINAL = ("succeeded", "failed", "cancelled")
+
+_ID_RE = re.compile(r"^[0-9a-f]{28}$")
+
+
+_last_us = 0
+_id_lock = threading.Lock()
+
+
+def new_job_id(now: float | None = None) -> str:
+    """28 hex chars: 14 of creation microseconds (strictly increasing within a
+    process), 14 random. Sorts by creation time."""
+    global _last_us
+    with _id_lock:
+        us = max(int((time.time() if now is None else now) * 1e6), _last_us + 1)
+        _last_us = us
+    return f"{us:014x}{os.urandom(7).hex()}"
+
+
+def is_job_id(text: str) -> bool:
+    return bool(_ID_RE.match(text))
+
+
+class Keys:
+    def __init__(self, prefix: str = "sl"):
+        self.prefix = prefix
+
+    def job(self, job_id: str) -> str:
+        return f"{self.prefix}:job:{job_id}"
+
+    def result(self, job_id: str) -> str:
+        return f"{self.prefix}:result:{job_id}"
+
+    def index_all(self) -> str:
+        return f"{self.prefix}:index:all"
+
+    def index_state(self, state: str) -> str:
+        return f"{self.prefix}:index:state:{state}"
+
+    def state_indexes(self) -> list[str]:
+        return [self.index_state(s) for s in STATES]
+
+    def worker(self, name: str) -> str:
+        return f"{self.prefix}:worker:{name}"
+
+    def worker_pattern(self) -> str:
+        return f"{self.prefix}:worker:*"

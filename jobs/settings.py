@@ -1,0 +1,40 @@
+"""Settings shared by the API and the worker, read from the environment.
+
+Every setting has a default that works for one machine (``make run``); the
+README's configuration table lists them.
+"""
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, fields
+
+
+def _env(name: str, default, cast):
+    raw = os.environ.get(name)
+    return default if raw in (None, "") else cast(raw)
+
+
+@dataclass(frozen=True)
+class Settings:
+    redis_url: str = "redis://127.0.0.1:6390/0"
+    key_prefix: str = "sl"
+    result_ttl_seconds: int = 7 * 24 * 3600
+    lease_seconds: float = 10.0          # a running attempt must heartbeat within this
+    max_attempts: int = 3                # a job that kills its worker this often is failed
+    interactive_queue: str = "stifflane.jobs"
+    soft_time_limit: int = 3000          # seconds; both below the visibility timeout
+    hard_time_limit: int = 3300
+    visibility_timeout: int = 3600
+    default_max_wall_seconds: float = 600.0
+    max_body_bytes: int = 2 * 1024 * 1024
+    max_output_points: int = 100_000
+
+    @classmethod
+    def from_env(cls) -> "Settings":
+        values = {}
+        for f in fields(cls):
+            cast = type(f.default)
+            values[f.name] = _env("STIFFLANE_" + f.name.upper(), f.default, cast)
+        # REDIS_URL is the conventional name; it wins over the prefixed one.
+        values["redis_url"] = os.environ.get("REDIS_URL") or values["redis_url"]
+        return cls(**values)

@@ -1,0 +1,218 @@
+"""JobStore: the only code that reads or writes job records and results in Redis.
+
+The job record is the source of truth; queue messages carry only the job id.
+Used by the API (create, read, list, cancel) and the worker (claim, heartbeat,
+finish, requeue). Imports neither Flask nor Celery.
+"""
+from __future__ import annotations
+
+import json
+import time
+import zlib
+from dataclasses import dataclass
+from typing import Optional
+
+import redis
+
+from jobs import lifecycle
+from jobs.keys import STATES, TERMINAL, Keys, new_job_id
+from jobs.settings import Settings
+
+# Fields read for a job view (everything but the spec, which can be large).
+VIEW_FIELDS = ("state", "rev", "created", "started", "finished", "progress", "attempt",
+               "title", "method", "outcome", "message", "summary", "cancel", "owner")
+
+
+@dataclass(frozen=True)
+class JobRecord:
+    id: str
+    state: str
+    rev: int
+    created: float
+    started: Optional[float]
+    finished: Optional[float]
+    progress: float
+    attempt: int
+    title: str
+    method: str
+    outcome: Optional[str]
+    message: Optional[str]
+    summary: Optional[dict]
+    cancel_requested: bool
+    owner: str
+
+    @property
+    def etag(self) -> str:
+        return make_etag(self.id, self.rev)
+
+
+def make_etag(job_id: str, rev: int) -> str:
+    return f'"{job_id}.{rev}"'
+
+
+def _s(v) -> Optional[str]:
+    return None if v is None else v.decode() if isinstance(v, bytes) else str(v)
+
+
+def _f(v) -> Optional[float]:
+    return None if v in (None, b"") else float(v)
+
+
+def _record(job_id: str, values: list) -> Optional[JobRecord]:
+    d = dict(zip(VIEW_FIELDS, values))
+    if d["state"] is None:
+        return None
+    summary = _s(d["summary"])
+    return JobRecord(
+        id=job_id, state=_s(d["state"]), rev=int(d["rev"] or 0), created=float(d["created"]),
+        started=_f(d["started"]), finished=_f(d["finished"]),
+        progress=float(d["progress"] or 0.0), attempt=int(d["attempt"] or 0),
+        title=_s(d["title"]) or "", method=_s(d["method"]) or "auto",
+        outcome=_s(d["outcome"]), message=_s(d["message"]),
+        summary=json.loads(summary) if summary else None,
+        cancel_requested=_s(d["cancel"]) == "1", owner=_s(d["owner"]) or "",
+    )
+
+
+class JobStore:
+    def __init__(self, client: redis.Redis, settings: Settings):
+        self.r = client
+        self.settings = settings
+        self.keys = Keys(settings.key_prefix)
+        self._claim = client.register_script(lifecycle.CLAIM)
+        self._heartbeat = client.register_script(lifecycle.HEARTBEAT)
+        self._finish = client.register_script(lifecycle.FINISH)
+        self._cancel = client.register_script(lifecycle.CANCEL)
+        self._requeue = client.register_script(lifecycle.REQUEUE)
+
+    @classmethod
+    def connect(cls, settings: Settings, **client_options) -> "JobStore":
+        options = dict(socket_timeout=5, socket_connect_timeout=2, health_check_interval=15)
+        options.update(client_options)
+        return cls(redis.Redis.from_url(settings.redis_url, **options), settings)
+
+    def _script_keys(self, job_id: str, *extra: str) -> list[str]:
+        return [self.keys.job(job_id), *self.keys.state_indexes(), *extra]
+
+    # ---- API side -------------------------------------------------------
+    def create(self, spec: dict, title: str, method: str, owner: str = "") -> JobRecord:
+        """Write a queued job record (one transaction) and return it."""
+        now = time.time()
+        job_id = new_job_id(now)
+        spec_blob = zlib.compress(json.dumps(spec, separators=(",", ":"), allow_nan=False).encode())
+        key = self.keys.job(job_id)
+        pipe = self.r.pipeline(transaction=True)
+        pipe.hset(key, mapping={"state": "queued", "rev": 1, "created": repr(now), "progress": "0",
+                                "attempt": 0, "title": title, "method": method, "owner": owner,
+                                "cancel": "0", "spec": spec_blob})
+        pipe.expire(key, self.settings.result_ttl_seconds)
+        pipe.zadd(self.keys.index_all(), {job_id: 0})
+        pipe.zadd(self.keys.index_state("queued"), {job_id: 0})
+        pipe.execute()
+        return self.get(job_id)
+
+    def get(self, job_id: str) -> Optional[JobRecord]:
+        return _record(job_id, self.r.hmget(self.keys.job(job_id), VIEW_FIELDS))
+
+    def rev(self, job_id: str) -> Optional[int]:
+        v = self.r.hget(self.keys.job(job_id), "rev")
+        return None if v is None else int(v)
+
+    def spec(self, job_id: str) -> Optional[dict]:
+        blob = self.r.hget(self.keys.job(job_id), "spec")
+        return None if blob is None else json.loads(zlib.decompress(blob))
+
+    def result_blob(self, job_id: str) -> Optional[bytes]:
+        return self.r.get(self.keys.result(job_id))
+
+    def cancel(self, job_id: str) -> str:
+        return _s(self._cancel(keys=self._script_keys(job_id), args=[job_id, repr(time.time())]))
+
+    def list(self, state: Optional[str], limit: int, after: Optional[str]) -> tuple[list[JobRecord], Optional[str]]:
+        """Newest first. ``after`` is the last id of the previous page."""
+        index = self.keys.index_state(state) if state else self.keys.index_all()
+        records: list[JobRecord] = []
+        cursor = after
+        while len(records) < limit:
+            upper = f"({cursor}" if cursor else "+"
+            ids = [_s(i) for i in self.r.zrevrangebylex(index, upper, "-", start=0, num=limit + 1)]
+            if not ids:
+                return records, None
+            pipe = self.r.pipeline(transaction=False)
+            for i in ids:
+                pipe.hmget(self.keys.job(i), VIEW_FIELDS)
+            stale = []
+            for i, values in zip(ids, pipe.execute()):
+                rec = _record(i, values)
+                if rec is None:
+                    stale.append(i)  # expired record: drop its index entries lazily
+                elif len(records) < limit:
+                    records.append(rec)
+                else:
+                    return records, records[-1].id
+                cursor = i
+            if stale:
+                self.r.zrem(index, *stale)
+                if index != self.keys.index_all():
+                    self.r.zrem(self.keys.index_all(), *stale)
+            if len(ids) <= limit and not stale:
+                return records, None
+        return records, records[-1].id if records else None
+
+    def queue_counts(self) -> dict[str, int]:
+        pipe = self.r.pipeline(transaction=False)
+        for s in STATES:
+            pipe.zcard(self.keys.index_state(s))
+        return dict(zip(STATES, pipe.execute()))
+
+    # ---- worker side ----------------------------------------------------
+    def claim(self, job_id: str) -> tuple[str, int]:
+        """('claimed', attempt) when this caller now runs the job, else (state, 0)."""
+        status, attempt = self._claim(
+            keys=self._script_keys(job_id),
+            args=[job_id, repr(time.time()), self.settings.lease_seconds, self.settings.max_attempts])
+        return _s(status), int(attempt)
+
+    def heartbeat(self, job_id: str, attempt: int, progress: Optional[float]) -> int:
+        """Extend the lease. Returns -1 if fenced out, 1 if cancel requested, else 0."""
+        return int(self._heartbeat(
+            keys=[self.keys.job(job_id)],
+            args=[job_id, attempt, repr(time.time()), self.settings.lease_seconds,
+                  "" if progress is None else f"{progress:.4f}"]))
+
+    def finish(self, job_id: str, attempt: int, state: str, outcome: str, message: str,
+               summary: dict, blob: Optional[bytes]) -> bool:
+        """Write the terminal state (and result) if ``attempt`` is still current."""
+        assert state in TERMINAL
+        return bool(self._finish(
+            keys=self._script_keys(job_id, self.keys.result(job_id)),
+            args=[job_id, attempt, repr(time.time()), state, outcome, message,
+                  json.dumps(summary, allow_nan=False), self.settings.result_ttl_seconds,
+                  "1" if blob is not None else "0", blob if blob is not None else b""]))
+
+    def expired_running(self) -> list[str]:
+        """Ids of running jobs whose lease has expired (candidates for requeue)."""
+        ids = [_s(i) for i in self.r.zrange(self.keys.index_state("running"), 0, -1)]
+        if not ids:
+            return []
+        pipe = self.r.pipeline(transaction=False)
+        for i in ids:
+            pipe.hget(self.keys.job(i), "lease")
+        now = time.time()
+        return [i for i, lease in zip(ids, pipe.execute()) if lease is not None and float(lease) < now]
+
+    def requeue(self, job_id: str) -> int:
+        """1: back to queued (publish it again); 2: was cancelling, now cancelled; 0: no-op."""
+        return int(self._requeue(keys=self._script_keys(job_id), args=[job_id, repr(time.time())]))
+
+    def queued_ids(self) -> list[str]:
+        return [_s(i) for i in self.r.zrange(self.keys.index_state("queued"), 0, -1)]
+
+    def worker_beat(self, name: str, info: dict, ttl: int = 30) -> None:
+        self.r.set(self.keys.worker(name), json.dumps(info), ex=ttl)
+
+    def workers(self) -> list[dict]:
+        names = list(self.r.scan_iter(match=self.keys.worker_pattern(), count=100))
+        if not names:
+            return []
+        return [json.loads(v) for v in self.r.mget(names) if v is not None]

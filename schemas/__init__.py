@@ -1,0 +1,1 @@
+"""Wire format: marshmallow schemas for every JSON body the API reads or writes."""

@@ -1,0 +1,165 @@
+"""Job spec v1: the JSON a client posts to create an integration job.
+
+Unknown fields are rejected everywhere; non-finite numbers are rejected
+(JSON has no NaN or Infinity, and the API's JSON reader refuses those tokens).
+Expression checks live in the model field (schemas/model.py), so every error
+comes back keyed by its path and becomes a JSON pointer in the problem document.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+
+from engine.integrate import METHODS
+from schemas.model import ModelField
+
+MAX_OUTPUT_POINTS = 100_000
+
+
+class FiniteFloat(fields.Float):
+    """A float that refuses NaN and +-Infinity, and booleans posing as numbers."""
+
+    def __init__(self, **kwargs):
+        super().__init__(allow_nan=False, **kwargs)
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if isinstance(value, bool) or not isinstance(value, (int, float)):
+            raise ValidationError("must be a number")
+        out = super()._deserialize(value, attr, data, **kwargs)
+        if not math.isfinite(out):
+            raise ValidationError("must be a finite number")
+        return out
+
+
+class StrictInteger(fields.Integer):
+    def __init__(self, **kwargs):
+        super().__init__(strict=True, **kwargs)
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if isinstance(value, bool):
+            raise ValidationError("must be an integer")
+        return super()._deserialize(value, attr, data, **kwargs)
+
+
+class AbsoluteTolerance(fields.Field):
+    """A positive number for every state, or {state: number} with an optional "*" default."""
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        number = FiniteFloat(validate=validate.Range(min=0, min_inclusive=False))
+        if isinstance(value, dict):
+            errors, out = {}, {}
+            for name, v in value.items():
+                try:
+                    out[name] = number.deserialize(v)
+                except ValidationError as e:
+                    errors[name] = e.messages
+            if errors:
+                raise ValidationError(errors)
+            return out
+        try:
+            return number.deserialize(value)
+        except ValidationError:
+            raise ValidationError("must be a positive number, or an object of positive numbers "
+                                  "keyed by state name (\"*\" for the rest)")
+
+
+class OutputSchema(Schema):
+    """Where results are reported: explicit times, or a count with spacing."""
+
+    times = fields.List(FiniteFloat(), validate=validate.Length(min=1, max=MAX_OUTPUT_POINTS))
+    count = StrictInteger(validate=validate.Range(min=2, max=MAX_OUTPUT_POINTS))
+    spacing = fields.String(validate=validate.OneOf(["linear", "log"]), load_default="linear")
+    first = FiniteFloat(validate=validate.Range(min=0, min_inclusive=False),
+                        metadata={"description": "log spacing: first output time after the start, "
+                                                 "as an offset from span[0] (default 1e-6 of the span)"})
+
+    @validates_schema
+    def _one_way(self, data, **kwargs):
+        if ("times" in data) == ("count" in data):
+            raise ValidationError("give exactly one of 'times' or 'count'", "_schema")
+        if "times" in data and any(b <= a for a, b in zip(data["times"], data["times"][1:])):
+            raise ValidationError("must be strictly increasing", "times")
+
+
+class ToleranceSchema(Schema):
+    rtol = FiniteFloat(validate=validate.Range(min=1e-13, max=0.1), load_default=1e-6,
+                       metadata={"description": "relative tolerance, 1e-13 to 0.1"})
+    atol = AbsoluteTolerance(load_default=1e-10, metadata={
+        "description": "absolute tolerance: a number, or {state: number, \"*\": default}",
+        "oneOf": [{"type": "number"}, {"type": "object", "additionalProperties": {"type": "number"}}]})
+
+
+class LimitsSchema(Schema):
+    max_steps = StrictInteger(validate=validate.Range(min=1, max=100_000_000), load_default=1_000_000)
+    max_wall_seconds = FiniteFloat(validate=validate.Range(min=0.01, max=86_400), load_default=600.0)
+
+
+class JobSpecSchema(Schema):
+    """Job spec v1."""
+
+    label = fields.String(validate=validate.Length(max=200), metadata={"description": "free text shown in lists"})
+    model = ModelField(required=True)
+    parameters = fields.Dict(keys=fields.String(), values=FiniteFloat(), load_default=dict,
+                             metadata={"description": "overrides of the model's parameter values"})
+    initial = fields.Dict(keys=fields.String(), values=FiniteFloat(), load_default=dict,
+                          metadata={"description": "overrides of the model's initial values"})
+    span = fields.List(FiniteFloat(), required=True, validate=validate.Length(equal=2),
+                       metadata={"description": "[t_start, t_end], t_end > t_start"})
+    output = fields.Nested(OutputSchema, load_default=lambda: {"count": 101, "spacing": "linear"})
+    tolerance = fields.Nested(ToleranceSchema, load_default=lambda: ToleranceSchema().load({}))
+    method = fields.String(validate=validate.OneOf(METHODS), load_default="auto")
+    limits = fields.Nested(LimitsSchema, load_default=lambda: LimitsSchema().load({}))
+    nonnegative = fields.Boolean(load_default=False,
+                                 metadata={"description": "keep every state >= 0 (concentrations)"})
+
+    @validates_schema
+    def _consistent(self, data, **kwargs):
+        errors: dict = {}
+        span = data.get("span")
+        if span and span[1] <= span[0]:
+            errors["span"] = ["t_end must be greater than t_start"]
+        out = data.get("output") or {}
+        if span and span[1] > span[0] and "times" in out:
+            if out["times"][0] < span[0] or out["times"][-1] > span[1]:
+                errors.setdefault("output", {})["times"] = [f"all output times must lie in the span {span}"]
+        if span and out.get("first") is not None and out["first"] >= span[1] - span[0]:
+            errors.setdefault("output", {})["first"] = ["must be smaller than the span's length"]
+        model = data.get("model")
+        if model is not None:
+            states = set(model.get("states", {}))
+            params = set(model.get("parameters", {}))
+            for name in data.get("initial", {}):
+                if name not in states:
+                    errors.setdefault("initial", {})[name] = [f"'{name}' is not a state of the model"]
+            for name in data.get("parameters", {}):
+                if name not in params:
+                    errors.setdefault("parameters", {})[name] = [f"'{name}' is not a parameter of the model"]
+            atol = (data.get("tolerance") or {}).get("atol")
+            if isinstance(atol, dict):
+                for name in atol:
+                    if name != "*" and name not in states:
+                        errors.setdefault("tolerance", {}).setdefault("atol", {})[name] = [
+                            f"'{name}' is not a state of the model"]
+        if errors:
+            raise ValidationError(errors)
+
+
+def output_times(span: list[float], output: dict) -> np.ndarray:
+    """The output times a loaded spec asks for."""
+    t0, t1 = span
+    if "times" in output:
+        return np.asarray(output["times"], dtype=float)
+    n = output["count"]
+    if output.get("spacing") == "log":
+        first = output.get("first") or (t1 - t0) * 1e-6
+        return np.concatenate([[t0], t0 + np.geomspace(first, t1 - t0, n - 1)])
+    return np.linspace(t0, t1, n)
+
+
+def atol_vector(atol, state_names: tuple[str, ...]) -> np.ndarray:
+    if isinstance(atol, dict):
+        default = atol.get("*", 1e-10)
+        return np.array([atol.get(name, default) for name in state_names], dtype=float)
+    return np.full(len(state_names), float(atol))

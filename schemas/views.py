@@ -1,0 +1,60 @@
+"""Response shapes: job views, pages of jobs, health."""
+from __future__ import annotations
+
+from marshmallow import Schema, fields
+
+STATE_DESCRIPTION = "queued, running, succeeded, failed or cancelled"
+
+
+class JobLinksSchema(Schema):
+    self = fields.String()
+    result = fields.String()
+    cancel = fields.String()
+
+
+class JobViewSchema(Schema):
+    id = fields.String()
+    state = fields.String(metadata={"description": STATE_DESCRIPTION})
+    progress = fields.Float(metadata={"description": "fraction of the time span integrated, 0..1"})
+    label = fields.String(attribute="title")
+    method = fields.String()
+    created_at = fields.String(metadata={"description": "RFC 3339 UTC"})
+    started_at = fields.String(allow_none=True)
+    finished_at = fields.String(allow_none=True)
+    attempt = fields.Integer()
+    cancel_requested = fields.Boolean()
+    outcome = fields.String(allow_none=True, metadata={"description": "how the run ended (named outcome)"})
+    message = fields.String(allow_none=True)
+    digest = fields.Dict(allow_none=True, metadata={"description": "short diagnostics summary when done"})
+    links = fields.Nested(JobLinksSchema)
+
+
+class JobPageSchema(Schema):
+    items = fields.List(fields.Nested(JobViewSchema))
+    next_cursor = fields.String(allow_none=True)
+
+
+class CreatedSchema(Schema):
+    id = fields.String()
+    state = fields.String()
+    links = fields.Nested(JobLinksSchema)
+
+
+class ResultSchema(Schema):
+    id = fields.String()
+    outcome = fields.String()
+    message = fields.String()
+    times = fields.List(fields.Float())
+    states = fields.Dict(keys=fields.String(), values=fields.List(fields.Float()))
+    derived = fields.Dict(keys=fields.String(), values=fields.List(fields.Float()))
+    report = fields.Dict(metadata={"description": "full solver diagnostics (stiffness report)"})
+    model = fields.Dict(metadata={"description": "prepared-model facts: names, stoichiometry, conservation laws"})
+    caution = fields.String()
+
+
+class HealthSchema(Schema):
+    status = fields.String(metadata={"description": "ok or degraded"})
+    redis = fields.Dict()
+    workers = fields.List(fields.Dict())
+    queues = fields.Dict(keys=fields.String(), values=fields.Integer())
+    detail = fields.String()

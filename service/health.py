@@ -1,0 +1,51 @@
+"""/v1/health and /v1/openapi.json."""
+from __future__ import annotations
+
+import time
+from functools import lru_cache
+
+from flask import Blueprint, Response, current_app, json
+from redis.exceptions import RedisError
+
+from schemas.openapi import build_openapi
+from schemas.views import HealthSchema
+
+bp = Blueprint("health", __name__, url_prefix="/v1")
+
+
+@bp.get("/health")
+def health():
+    ctx = current_app.extensions["stifflane"]
+    body = {"status": "ok", "redis": {}, "workers": [], "queues": {}}
+    status = 200
+    try:
+        started = time.perf_counter()
+        ctx.store.r.ping()
+        body["redis"] = {"reachable": True, "ping_ms": round(1000 * (time.perf_counter() - started), 2)}
+        body["workers"] = ctx.store.workers()
+        body["queues"] = {"broker:" + ctx.settings.interactive_queue: ctx.store.r.llen(ctx.settings.interactive_queue),
+                          **{f"jobs:{k}": v for k, v in ctx.store.queue_counts().items()
+                             if k in ("queued", "running")}}
+        if not body["workers"]:
+            body["status"] = "degraded"
+            body["detail"] = "no worker has reported in the last 30 s; queued jobs will wait"
+    except RedisError as e:
+        body.update(status="degraded", redis={"reachable": False, "error": str(e)[:200]})
+        status = 503
+    resp = Response(json.dumps(HealthSchema().dump(body)),
+                    status=status, mimetype="application/json")
+    if status == 503:
+        resp.headers["Retry-After"] = "2"
+    return resp
+
+
+@lru_cache(maxsize=1)
+def _openapi_text() -> str:
+    from service.app import VERSION
+
+    return json.dumps(build_openapi(VERSION))
+
+
+@bp.get("/openapi.json")
+def openapi():
+    return Response(_openapi_text(), mimetype="application/json")

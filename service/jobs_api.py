@@ -1,0 +1,157 @@
+"""/v1/jobs: create, read, list, result, spec, cancel. Thin adapters over JobStore."""
+from __future__ import annotations
+
+from datetime import datetime, timezone
+
+from flask import Blueprint, Response, current_app, json, request, url_for
+
+from jobs.keys import STATES, is_job_id
+from jobs.store import JobRecord, make_etag
+from schemas.job import JobSpecSchema
+from schemas.views import CreatedSchema, JobPageSchema, JobViewSchema
+from service import results
+from service.jsonbody import read_json_object
+from service.problems import ApiProblem
+
+bp = Blueprint("jobs", __name__, url_prefix="/v1")
+
+
+def _ctx():
+    return current_app.extensions["stifflane"]
+
+
+def _iso(ts: float | None) -> str | None:
+    if ts is None:
+        return None
+    return datetime.fromtimestamp(ts, tz=timezone.utc).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+def _links(job_id: str) -> dict:
+    return {"self": url_for("jobs.get_job", job_id=job_id),
+            "result": url_for("jobs.get_result", job_id=job_id),
+            "cancel": url_for("jobs.cancel_job", job_id=job_id)}
+
+
+def _view(rec: JobRecord) -> dict:
+    return JobViewSchema().dump({
+        "id": rec.id, "state": rec.state, "progress": rec.progress, "title": rec.title,
+        "method": rec.method, "created_at": _iso(rec.created), "started_at": _iso(rec.started),
+        "finished_at": _iso(rec.finished), "attempt": rec.attempt,
+        "cancel_requested": rec.cancel_requested, "outcome": rec.outcome, "message": rec.message,
+        "digest": rec.summary, "links": _links(rec.id)})
+
+
+def _json(body, status: int = 200, headers: dict | None = None) -> Response:
+    resp = Response(json.dumps(body), status=status, mimetype="application/json")
+    for k, v in (headers or {}).items():
+        resp.headers[k] = v
+    return resp
+
+
+def _find(job_id: str) -> JobRecord:
+    rec = _ctx().store.get(job_id) if is_job_id(job_id) else None
+    if rec is None:
+        raise ApiProblem(404, "Not Found", f"no job with id {job_id!r}", kind="job-not-found")
+    return rec
+
+
+@bp.post("/jobs")
+def create_job():
+    body = read_json_object()
+    spec = JobSpecSchema().load(body)
+    ctx = _ctx()
+    _check_output_cap(spec, ctx.settings.max_output_points)
+    title = spec.get("label") or spec["model"].get("title") or "untitled"
+    # The record is written before the message is published: the record is the truth.
+    rec = ctx.store.create(JobSpecSchema().dump(spec), title=title[:200], method=spec["method"])
+    ctx.publisher.publish(rec.id)
+    location = url_for("jobs.get_job", job_id=rec.id)
+    return _json(CreatedSchema().dump({"id": rec.id, "state": rec.state, "links": _links(rec.id)}),
+                 202, {"Location": location, "Retry-After": "1", "ETag": rec.etag})
+
+
+def _check_output_cap(spec: dict, cap: int) -> None:
+    out = spec["output"]
+    n = len(out["times"]) if "times" in out else out["count"]
+    if n > cap:
+        raise ApiProblem(422, "Invalid job spec", "too many output points", kind="invalid-spec",
+                         errors=[{"pointer": "/output", "detail": f"{n} output points; at most {cap} allowed"}])
+
+
+@bp.get("/jobs")
+def list_jobs():
+    state = request.args.get("state")
+    if state is not None and state not in STATES:
+        raise ApiProblem(400, "Bad Request", f"state must be one of {', '.join(STATES)}",
+                         errors=[{"pointer": "/query/state", "detail": f"unknown state {state!r}"}])
+    try:
+        limit = int(request.args.get("limit", 50))
+        if not 1 <= limit <= 200:
+            raise ValueError
+    except ValueError:
+        raise ApiProblem(400, "Bad Request", "limit must be an integer from 1 to 200",
+                         errors=[{"pointer": "/query/limit", "detail": "integer from 1 to 200"}])
+    cursor = request.args.get("cursor")
+    if cursor is not None and not is_job_id(cursor):
+        raise ApiProblem(400, "Bad Request", "cursor must be a value from a previous page's Link header",
+                         errors=[{"pointer": "/query/cursor", "detail": "not a cursor"}])
+    records, next_cursor = _ctx().store.list(state, limit, cursor)
+    headers = {}
+    if next_cursor:
+        args = {"limit": limit, "cursor": next_cursor, **({"state": state} if state else {})}
+        headers["Link"] = f'<{url_for("jobs.list_jobs", **args)}>; rel="next"'
+    return _json(JobPageSchema().dump({"items": [_view(r) for r in records], "next_cursor": next_cursor}),
+                 200, headers)
+
+
+@bp.get("/jobs/<job_id>")
+def get_job(job_id: str):
+    store = _ctx().store
+    inm = request.headers.get("If-None-Match")
+    if inm and is_job_id(job_id):
+        rev = store.rev(job_id)  # one Redis command for an unchanged poll
+        if rev is not None and make_etag(job_id, rev) in [t.strip() for t in inm.split(",")]:
+            return Response(status=304, headers={"ETag": make_etag(job_id, rev)})
+    rec = _find(job_id)
+    return _json(_view(rec), 200, {"ETag": rec.etag, "Cache-Control": "no-cache"})
+
+
+@bp.get("/jobs/<job_id>/spec")
+def get_spec(job_id: str):
+    _find(job_id)
+    return _json(_ctx().store.spec(job_id))
+
+
+@bp.get("/jobs/<job_id>/result")
+def get_result(job_id: str):
+    rec = _find(job_id)
+    fmt = results.negotiate(request.args.get("format"), request.accept_mimetypes)
+    if fmt is None:
+        raise ApiProblem(406, "Not Acceptable", "results come as json, csv or npz (format= or Accept)")
+    if rec.state != "succeeded":
+        raise ApiProblem(409, "Result not available",
+                         f"the job is {rec.state}; a result exists only once it has succeeded",
+                         kind="result-not-ready", state=rec.state,
+                         headers={"Retry-After": "1"} if rec.state in ("queued", "running") else None)
+    blob = _ctx().store.result_blob(job_id)
+    if blob is None:
+        raise ApiProblem(404, "Not Found", "the result has expired", kind="result-expired")
+    headers = {"ETag": rec.etag, "Cache-Control": "private, max-age=3600", "Vary": "Accept"}
+    if fmt == "csv":
+        headers["Content-Disposition"] = f'attachment; filename="{job_id}.csv"'
+        return Response(results.as_csv(blob), mimetype="text/csv", headers=headers)
+    if fmt == "npz":
+        headers["Content-Disposition"] = f'attachment; filename="{job_id}.npz"'
+        return Response(results.as_npz(blob), mimetype="application/x-npz", headers=headers)
+    return _json(results.as_json(job_id, blob), 200, headers)
+
+
+@bp.post("/jobs/<job_id>/cancel")
+def cancel_job(job_id: str):
+    _find(job_id)
+    outcome = _ctx().store.cancel(job_id)
+    rec = _find(job_id)
+    if outcome in ("succeeded", "failed"):
+        raise ApiProblem(409, "Already finished", f"the job already {outcome}", kind="already-finished",
+                         state=outcome)
+    return _json(_view(rec), 202, {"ETag": rec.etag})

