@@ -1,0 +1,590 @@
+"""Expression trees of the model language, and the parser that builds them.
+
+The parser is our own tokenizer plus recursive descent (no ``eval``, no
+``ast``): it accepts printable ASCII only, checks length, nesting depth,
+literal size and node count as it goes, and reports every problem as an
+:class:`ExprError` carrying the 0-based character position.
+
+Trees are immutable :class:`Node` objects made by a :class:`Builder`, which
+folds constants in float64, applies local simplifications and hash-conses
+(interns) nodes, so equal subexpressions are one object: compiled programs
+and derivatives then share work without a separate CSE pass. Nodes from one
+builder are compared by identity.
+"""
+from __future__ import annotations
+
+import math
+import re
+
+from engine.limits import DEFAULT_LIMITS, Limits
+from engine.names import CONSTANTS, FUNCTIONS, TIME, suggest
+
+COMMUTATIVE = frozenset({"add", "mul", "min", "max", "eq", "ne", "and", "or"})
+LEAVES = frozenset({"const", "y", "p", "t"})
+
+
+class ExprError(ValueError):
+    """A problem in one expression: what is wrong, where (0-based), and a hint."""
+
+    def __init__(self, message: str, position: int | None = None, suggestion: str | None = None):
+        super().__init__(message)
+        self.message, self.position, self.suggestion = message, position, suggestion
+
+
+class Node:
+    """One immutable tree node. ``value`` is the constant, the variable index
+    (``y``/``p``) or the integer exponent (``powi``); ``name`` labels variables."""
+
+    __slots__ = ("op", "args", "value", "name", "serial")
+
+    def __init__(self, op, args, value, name, serial):
+        for slot, v in zip(self.__slots__, (op, args, value, name, serial)):
+            object.__setattr__(self, slot, v)
+
+    def __setattr__(self, key, value):
+        raise AttributeError("Node is immutable")
+
+    def __repr__(self):
+        return f"Node({to_text(self)})"
+
+    @property
+    def is_const(self) -> bool:
+        return self.op == "const"
+
+
+def _log(x):
+    return math.log(x) if x > 0 else (-math.inf if x == 0 else math.nan)
+
+
+def _pow(x, e):
+    if x < 0 and e != math.floor(e):
+        return math.nan
+    if x == 0 and e < 0:
+        return math.inf
+    return x ** e
+
+
+def _div(a, b):
+    if b == 0:
+        return math.nan if a == 0 else math.copysign(math.inf, a) * math.copysign(1, b)
+    return a / b
+
+
+def _clip(x):
+    return min(max(x, -709.0), 709.0)
+
+
+# Scalar semantics of every operator; identical to engine.vm.run.
+UNARY = {
+    "neg": lambda x: -x, "exp": lambda x: math.exp(min(x, 709.0)), "log": _log,
+    "log10": lambda x: math.log10(x) if x > 0 else (-math.inf if x == 0 else math.nan),
+    "sqrt": lambda x: math.sqrt(x) if x >= 0 else math.nan,
+    "sin": math.sin, "cos": math.cos, "tan": math.tan,
+    "sinh": lambda x: math.sinh(_clip(x)), "cosh": lambda x: math.cosh(_clip(x)),
+    "tanh": math.tanh, "abs": abs, "sign": lambda x: float((x > 0) - (x < 0)),
+    "step": lambda x: 1.0 if x >= 0 else 0.0, "not": lambda x: 1.0 if x == 0 else 0.0,
+}
+BINARY = {
+    "add": lambda a, b: a + b, "sub": lambda a, b: a - b, "mul": lambda a, b: a * b,
+    "div": _div, "pow": _pow, "min": min, "max": max,
+    "lt": lambda a, b: float(a < b), "le": lambda a, b: float(a <= b),
+    "gt": lambda a, b: float(a > b), "ge": lambda a, b: float(a >= b),
+    "eq": lambda a, b: float(a == b), "ne": lambda a, b: float(a != b),
+    "and": lambda a, b: float(a != 0 and b != 0), "or": lambda a, b: float(a != 0 or b != 0),
+}
+
+
+def powi(x: float, n: int) -> float:
+    return _pow(x, float(n))
+
+
+class Builder:
+    """Makes interned, simplified nodes. ``strict`` makes a constant that folds
+    to a non-finite number an error (user expressions); otherwise it stays unfolded."""
+
+    def __init__(self, strict: bool = True, max_exponent: float = DEFAULT_LIMITS.max_exponent):
+        self._table: dict = {}
+        self.strict = strict
+        self.max_exponent = max_exponent
+        self.zero, self.one = self.const(0.0), self.const(1.0)
+
+    def __len__(self):
+        return len(self._table)
+
+    def _make(self, op, args=(), value=None, name=None):
+        key = (op, value, tuple(a.serial for a in args))
+        node = self._table.get(key)
+        if node is None:
+            node = Node(op, tuple(args), value, name, len(self._table))
+            self._table[key] = node
+        return node
+
+    def const(self, v: float) -> Node:
+        v = float(v)
+        if not math.isfinite(v):
+            raise ExprError("number is not finite in float64")
+        return self._make("const", value=v + 0.0)  # folds -0.0 into 0.0
+
+    def var(self, kind: str, index: int, name: str) -> Node:
+        return self._make(kind, value=int(index), name=name)
+
+    def time(self) -> Node:
+        return self._make("t", name=TIME)
+
+    def _fold(self, fn, *vals):
+        try:
+            r = float(fn(*vals))
+        except (OverflowError, ValueError, ZeroDivisionError):
+            r = math.nan
+        if math.isfinite(r):
+            return self.const(r)
+        if self.strict:
+            raise ExprError("constant sub-expression does not evaluate to a finite float64 number")
+        return None
+
+    def unary(self, op: str, x: Node) -> Node:
+        if x.is_const:
+            folded = self._fold(UNARY[op], x.value)
+            if folded is not None:
+                return folded
+        if op == "neg":
+            if x.op == "neg":
+                return x.args[0]
+            if x.op == "sub":
+                return self.binary("sub", x.args[1], x.args[0])
+        if op == "abs" and x.op in ("abs", "exp", "cosh"):
+            return x
+        return self._make(op, (x,))
+
+    def binary(self, op: str, a: Node, b: Node) -> Node:
+        if op == "pow" and b.is_const and abs(b.value) > self.max_exponent:
+            raise ExprError(f"constant exponent {b.value:g} exceeds the limit {self.max_exponent:g}")
+        if a.is_const and b.is_const:
+            folded = self._fold(BINARY[op], a.value, b.value)
+            if folded is not None:
+                return folded
+        if op in COMMUTATIVE and _order(b) < _order(a):
+            a, b = b, a
+        simple = getattr(self, "_simplify_" + op, None)
+        if simple is not None:
+            r = simple(a, b)
+            if r is not None:
+                return r
+        return self._make(op, (a, b))
+
+    def _simplify_add(self, a, b):
+        if a is self.zero:
+            return b
+        if b.op == "neg":
+            return self.binary("sub", a, b.args[0])
+        if a.op == "neg":
+            return self.binary("sub", b, a.args[0])
+        return None
+
+    def _simplify_sub(self, a, b):
+        if b is self.zero:
+            return a
+        if a is self.zero:
+            return self.unary("neg", b)
+        if a is b:
+            return self.zero
+        if b.op == "neg":
+            return self.binary("add", a, b.args[0])
+        return None
+
+    def _simplify_mul(self, a, b):
+        if a.is_const:
+            if a.value == 0.0:
+                return self.zero
+            if a.value == 1.0:
+                return b
+            if a.value == -1.0:
+                return self.unary("neg", b)
+            if b.op == "mul" and b.args[0].is_const:
+                return self.binary("mul", self.const(a.value * b.args[0].value), b.args[1])
+            if b.op == "neg":
+                return self.binary("mul", self.const(-a.value), b.args[0])
+        if a.op == "neg" and b.op == "neg":
+            return self.binary("mul", a.args[0], b.args[0])
+        if a is b:
+            return self.powi(a, 2)
+        return None
+
+    def _simplify_div(self, a, b):
+        if a is self.zero:
+            return self.zero
+        if b is self.one:
+            return a
+        if a is b:
+            return self.one
+        return None
+
+    def _simplify_pow(self, a, b):
+        if b.is_const:
+            e = b.value
+            if abs(e) > self.max_exponent:
+                raise ExprError(f"constant exponent {e:g} exceeds the limit {self.max_exponent:g}")
+            if e == math.floor(e):
+                return self.powi(a, int(e))
+        return None
+
+    def powi(self, x: Node, n: int) -> Node:
+        if n == 0:
+            return self.one
+        if n == 1:
+            return x
+        if x.is_const:
+            folded = self._fold(_pow, x.value, float(n))
+            if folded is not None:
+                return folded
+        if x.op == "powi" and abs(x.value * n) <= self.max_exponent:
+            return self.powi(x.args[0], x.value * n)
+        return self._make("powi", (x,), value=int(n))
+
+    def select(self, c: Node, a: Node, b: Node) -> Node:
+        if c.is_const:
+            return a if c.value != 0 else b
+        if a is b:
+            return a
+        return self._make("select", (c, a, b))
+
+    # Short names used by the derivative code.
+    def add(self, a, b): return self.binary("add", a, b)
+    def sub(self, a, b): return self.binary("sub", a, b)
+    def mul(self, a, b): return self.binary("mul", a, b)
+    def div(self, a, b): return self.binary("div", a, b)
+    def neg(self, a): return self.unary("neg", a)
+
+
+def _order(node: Node):
+    return (not node.is_const, node.serial)
+
+
+def postorder(roots) -> list[Node]:
+    """Every node reachable from ``roots``, children before parents, each once (iterative)."""
+    seen: set[int] = set()
+    order: list[Node] = []
+    for root in roots:
+        if id(root) in seen:
+            continue
+        stack = [(root, 0)]
+        while stack:
+            node, i = stack.pop()
+            if i < len(node.args):
+                stack.append((node, i + 1))
+                child = node.args[i]
+                if id(child) not in seen:
+                    stack.append((child, 0))
+            elif id(node) not in seen:
+                seen.add(id(node))
+                order.append(node)
+    return order
+
+
+def evaluate(roots, t: float, y, p) -> list[float]:
+    """Values of ``roots`` in plain Python float64 (reference semantics, for tests and tools)."""
+    val: dict[int, float] = {}
+    for n in postorder(roots):
+        a = [val[id(c)] for c in n.args]
+        if n.op == "const":
+            v = n.value
+        elif n.op == "y":
+            v = float(y[n.value])
+        elif n.op == "p":
+            v = float(p[n.value])
+        elif n.op == "t":
+            v = float(t)
+        elif n.op == "powi":
+            v = powi(a[0], n.value)
+        elif n.op == "select":
+            v = a[1] if a[0] != 0 else a[2]
+        elif n.op in UNARY:
+            v = UNARY[n.op](a[0])
+        else:
+            try:
+                v = BINARY[n.op](a[0], a[1])
+            except OverflowError:
+                v = math.inf
+        val[id(n)] = v
+    return [val[id(r)] for r in roots]
+
+
+_INFIX = {"add": "+", "sub": "-", "mul": "*", "div": "/", "pow": "^", "lt": "<", "le": "<=",
+          "gt": ">", "ge": ">=", "eq": "==", "ne": "!=", "and": " and ", "or": " or "}
+
+
+def to_text(node: Node) -> str:
+    """Readable, fully parenthesised form (for labels and debugging)."""
+    text: dict[int, str] = {}
+    for n in postorder([node]):
+        a = [text[id(c)] for c in n.args]
+        if n.op == "const":
+            s = repr(n.value) if n.value >= 0 else f"({n.value!r})"
+        elif n.op in ("y", "p", "t"):
+            s = n.name
+        elif n.op == "neg":
+            s = f"(-{a[0]})"
+        elif n.op == "powi":
+            s = f"{a[0]}^{n.value}" if n.value > 0 else f"{a[0]}^({n.value})"
+        elif n.op in _INFIX:
+            s = f"({a[0]}{_INFIX[n.op]}{a[1]})"
+        else:
+            s = f"{'if' if n.op == 'select' else n.op}({', '.join(a)})"
+        text[id(n)] = s
+    return text[id(node)]
+
+
+# ---------------------------------------------------------------------------
+# Parser: tokenizer + recursive descent. Precedence, lowest first:
+#   or < and < not < comparison < + - < * / < unary - + < ^ ** (right-assoc)
+
+_TOKEN = re.compile(
+    r" *(?:(?P<num>(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?)"
+    r"|(?P<name>[A-Za-z_][A-Za-z0-9_]*)"
+    r"|(?P<op>\*\*|<=|>=|==|!=|[-+*/^(),<>]))")
+_COMPARE = {"<": "lt", "<=": "le", ">": "gt", ">=": "ge", "==": "eq", "!=": "ne"}
+_UNARY_FUNCS = {"exp", "log", "log10", "sqrt", "sin", "cos", "tan", "sinh", "cosh", "tanh",
+                "abs", "sign", "step"}
+_FORBIDDEN_CHARS = {
+    ".": "attribute access is not allowed", "[": "subscripts are not allowed",
+    "'": "strings are not allowed", '"': "strings are not allowed",
+    "=": "use == to compare", "#": "'#' is not allowed", ":": "':' is not allowed",
+}
+
+
+def precheck(text: object, limits: Limits = DEFAULT_LIMITS) -> None:
+    """Cheap checks done before tokenizing: type, length, printable ASCII, paren depth."""
+    if not isinstance(text, str):
+        raise ExprError("an expression must be a string")
+    if not text.strip():
+        raise ExprError("the expression is empty", 0)
+    if len(text) > limits.max_expression_length:
+        raise ExprError(f"the expression is longer than {limits.max_expression_length} characters",
+                        limits.max_expression_length)
+    depth = 0
+    for i, ch in enumerate(text):
+        if not (" " <= ch <= "~"):
+            raise ExprError(f"character {ch!r} is not allowed; use printable ASCII only", i)
+        if ch == "(":
+            depth += 1
+            if depth > limits.max_nesting_depth:
+                raise ExprError(f"parentheses nest deeper than {limits.max_nesting_depth}", i)
+        elif ch == ")":
+            depth -= 1
+            if depth < 0:
+                raise ExprError("unmatched ')'", i)
+    if depth:
+        raise ExprError("unclosed '('", text.rindex("("))
+
+
+def _tokenize(text: str, limits: Limits) -> list[tuple[str, str, int]]:
+    tokens, pos = [], 0
+    while pos < len(text):
+        m = _TOKEN.match(text, pos)
+        if m is None or m.end() == pos:
+            i = len(text) - len(text[pos:].lstrip(" "))
+            if i >= len(text):
+                break
+            ch = text[i]
+            raise ExprError(f"unexpected {ch!r}; {_FORBIDDEN_CHARS.get(ch, 'not part of the language')}", i)
+        kind = m.lastgroup
+        tok_pos = m.start(kind)
+        value = m.group(kind)
+        if kind == "num":
+            mantissa = re.split("[eE]", value)[0]
+            if sum(c.isdigit() for c in mantissa) > limits.max_literal_digits:
+                raise ExprError(f"number has more than {limits.max_literal_digits} digits", tok_pos)
+            if len(value) - len(mantissa) > 5:
+                raise ExprError("number exponent is too long", tok_pos)
+        tokens.append((kind, value, tok_pos))
+        pos = m.end()
+    tokens.append(("end", "", len(text)))
+    return tokens
+
+
+class _Parser:
+    def __init__(self, text, scope, builder, limits, explain):
+        self.tokens = _tokenize(text, limits)
+        self.i, self.depth, self.nodes = 0, 0, 0
+        self.scope, self.b, self.limits, self.explain = scope, builder, limits, explain or {}
+
+    # -- helpers ----------------------------------------------------------
+    def peek(self):
+        return self.tokens[self.i]
+
+    def take(self):
+        tok = self.tokens[self.i]
+        self.i += 1
+        return tok
+
+    def expect(self, value):
+        kind, v, pos = self.take()
+        if v != value or kind == "end":
+            found = "the end" if kind == "end" else repr(v)
+            raise ExprError(f"expected {value!r} but found {found}", pos)
+
+    def count(self, pos):
+        self.nodes += 1
+        if self.nodes > self.limits.max_expression_nodes:
+            raise ExprError(f"expression has more than {self.limits.max_expression_nodes} terms", pos)
+
+    def enter(self, pos):
+        self.depth += 1
+        if self.depth > self.limits.max_nesting_depth:
+            raise ExprError(f"expression nests deeper than {self.limits.max_nesting_depth}", pos)
+
+    def build(self, pos, fn, *args):
+        self.count(pos)
+        try:
+            return fn(*args)
+        except ExprError as err:
+            raise ExprError(err.message, pos, err.suggestion) from None
+
+    # -- grammar ----------------------------------------------------------
+    def parse(self):
+        node = self.p_or()
+        kind, v, pos = self.peek()
+        if kind != "end":
+            raise ExprError(f"unexpected {v!r}; expected an operator or the end", pos)
+        return node
+
+    def _left_assoc(self, sub, ops):
+        node = sub()
+        while self.peek()[1] in ops and self.peek()[0] in ("op", "name"):
+            _, v, pos = self.take()
+            node = self.build(pos, self.b.binary, ops[v], node, sub())
+        return node
+
+    def p_or(self):
+        return self._left_assoc(self.p_and, {"or": "or"})
+
+    def p_and(self):
+        return self._left_assoc(self.p_not, {"and": "and"})
+
+    def p_not(self):
+        kind, v, pos = self.peek()
+        if kind == "name" and v == "not":
+            self.take()
+            self.enter(pos)
+            node = self.build(pos, self.b.unary, "not", self.p_not())
+            self.depth -= 1
+            return node
+        return self.p_compare()
+
+    def p_compare(self):
+        node = self.p_sum()
+        kind, v, pos = self.peek()
+        if kind == "op" and v in _COMPARE:
+            self.take()
+            node = self.build(pos, self.b.binary, _COMPARE[v], node, self.p_sum())
+            kind2, v2, pos2 = self.peek()
+            if kind2 == "op" and v2 in _COMPARE:
+                raise ExprError("chained comparisons are not allowed; combine them with 'and'", pos2)
+        return node
+
+    def p_sum(self):
+        return self._left_assoc(self.p_term, {"+": "add", "-": "sub"})
+
+    def p_term(self):
+        return self._left_assoc(self.p_unary, {"*": "mul", "/": "div"})
+
+    def p_unary(self):
+        kind, v, pos = self.peek()
+        if kind == "op" and v in "+-":
+            self.take()
+            self.enter(pos)
+            operand = self.p_unary()
+            self.depth -= 1
+            return operand if v == "+" else self.build(pos, self.b.unary, "neg", operand)
+        return self.p_power()
+
+    def p_power(self):
+        base = self.p_atom()
+        kind, v, pos = self.peek()
+        if kind == "op" and v in ("**", "^"):
+            self.take()
+            self.enter(pos)
+            exponent = self.p_unary()
+            self.depth -= 1
+            return self.build(pos, self.b.binary, "pow", base, exponent)
+        return base
+
+    def p_atom(self):
+        kind, v, pos = self.take()
+        if kind == "num":
+            self.count(pos)
+            try:
+                return self.b.const(float(v))
+            except ExprError:
+                raise ExprError(f"number {v} is out of the float64 range", pos) from None
+        if kind == "name":
+            if v.startswith("__"):
+                raise ExprError(f"names starting with '__' are not allowed: {v!r}", pos)
+            if self.peek()[1] == "(" and self.peek()[0] == "op":
+                return self.p_call(v, pos)
+            return self.p_name(v, pos)
+        if kind == "op" and v == "(":
+            self.enter(pos)
+            node = self.p_or()
+            self.expect(")")
+            self.depth -= 1
+            return node
+        found = "the end of the expression" if kind == "end" else repr(v)
+        raise ExprError(f"expected a number, name or '(' but found {found}", pos)
+
+    def p_name(self, name, pos):
+        self.count(pos)
+        if name in FUNCTIONS:
+            raise ExprError(f"'{name}' is a function; call it as {name}(...)", pos)
+        if name in ("and", "or", "not"):
+            raise ExprError(f"unexpected keyword '{name}'", pos)
+        if name == TIME:
+            return self.b.time()
+        if name in CONSTANTS:
+            return self.b.const(CONSTANTS[name])
+        node = self.scope.get(name)
+        if node is not None:
+            return node
+        if name in self.explain:
+            raise ExprError(self.explain[name], pos)
+        hint = suggest(name, list(self.scope) + [TIME] + list(CONSTANTS))
+        raise ExprError(f"unknown name '{name}'", pos, hint)
+
+    def p_call(self, name, pos):
+        if name not in FUNCTIONS:
+            hint = suggest(name, FUNCTIONS)
+            raise ExprError(f"'{name}' is not a function; functions are "
+                            + ", ".join(sorted(FUNCTIONS)), pos, hint)
+        self.take()  # '('
+        self.enter(pos)
+        args = []
+        if self.peek()[1] != ")":
+            args.append(self.p_or())
+            while self.peek()[1] == "," and self.peek()[0] == "op":
+                self.take()
+                args.append(self.p_or())
+        self.expect(")")
+        self.depth -= 1
+        lo, hi = FUNCTIONS[name]
+        if len(args) < lo or (hi is not None and len(args) > hi):
+            want = str(lo) if lo == hi else f"at least {lo}"
+            raise ExprError(f"{name}() takes {want} argument(s), got {len(args)}", pos)
+        if name in _UNARY_FUNCS:
+            return self.build(pos, self.b.unary, name, args[0])
+        if name == "if":
+            return self.build(pos, self.b.select, *args)
+        node = args[0]
+        for other in args[1:]:
+            node = self.build(pos, self.b.binary, name, node, other)
+        return node
+
+
+def parse(text: object, scope: dict, builder: Builder, limits: Limits = DEFAULT_LIMITS,
+          explain: dict | None = None) -> Node:
+    """Parse ``text`` over the names in ``scope`` (name -> Node) into ``builder``'s tree.
+
+    ``explain`` maps names that exist but may not be used here to the message to give.
+    Raises :class:`ExprError` with the 0-based position of the problem.
+    """
+    precheck(text, limits)
+    return _Parser(text, scope, builder, limits, explain).parse()

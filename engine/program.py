@@ -1,0 +1,129 @@
+"""Compile expression DAGs into register programs for :func:`engine.vm.run`.
+
+Each program evaluates a list of ``(output index, node)`` pairs. Nodes are
+visited children-first, each shared node is computed once (the builder has
+already hash-consed equal subexpressions), single-use products feeding a sum
+become one fused ``MULADD``, every output is written as soon as its value is
+ready, and a register is reused as soon as its value's last reader has run, so
+``n_regs`` stays small (linear-scan allocation over a straight-line program).
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from engine import vm
+from engine.expr import Node, postorder
+
+_OPCODES = {
+    "add": vm.ADD, "sub": vm.SUB, "mul": vm.MUL, "div": vm.DIV, "neg": vm.NEG,
+    "pow": vm.POW, "exp": vm.EXP, "log": vm.LOG, "log10": vm.LOG10, "sqrt": vm.SQRT,
+    "sin": vm.SIN, "cos": vm.COS, "tan": vm.TAN, "sinh": vm.SINH, "cosh": vm.COSH,
+    "tanh": vm.TANH, "abs": vm.ABS, "sign": vm.SIGN, "min": vm.MIN, "max": vm.MAX,
+    "step": vm.STEP, "lt": vm.LT, "le": vm.LE, "gt": vm.GT, "ge": vm.GE, "eq": vm.EQ,
+    "ne": vm.NE, "and": vm.AND, "or": vm.OR, "not": vm.NOT, "select": vm.SELECT,
+}
+
+
+class ConstPool:
+    """Deduplicated float64 constants shared by all programs of one kernel."""
+
+    def __init__(self):
+        self.index: dict[float, int] = {}
+
+    def __call__(self, value: float) -> int:
+        return self.index.setdefault(value, len(self.index))
+
+    def array(self) -> np.ndarray:
+        out = np.zeros(len(self.index))
+        for v, i in self.index.items():
+            out[i] = v
+        return out
+
+
+def _uses(nodes: list[Node], outputs) -> dict[int, int]:
+    uses: dict[int, int] = {}
+    for n in nodes:
+        for c in n.args:
+            uses[id(c)] = uses.get(id(c), 0) + 1
+    for _, n in outputs:
+        uses[id(n)] = uses.get(id(n), 0) + 1
+    return uses
+
+
+def _schedule(outputs) -> list[tuple[int, int, Node, tuple]]:
+    """Instructions as (opcode, extra, result node, operand nodes); OUT has result None."""
+    nodes = postorder([n for _, n in outputs])
+    uses = _uses(nodes, outputs)
+    by_node: dict[int, list[int]] = {}
+    for k, n in outputs:
+        by_node.setdefault(id(n), []).append(k)
+    fused: set[int] = set()
+    for n in nodes:  # a product read only by one sum is folded into that sum
+        if n.op == "add":
+            for m in n.args:
+                if m.op == "mul" and uses[id(m)] == 1 and id(m) not in by_node:
+                    fused.add(id(m))
+                    break
+    sched = []
+    for n in nodes:
+        if id(n) in fused:
+            continue
+        op = n.op
+        if op == "const":
+            sched.append((vm.CONST, n.value, n, ()))
+        elif op in ("y", "p"):
+            sched.append((vm.STATE if op == "y" else vm.PARAM, n.value, n, ()))
+        elif op == "t":
+            sched.append((vm.TIME, 0, n, ()))
+        elif op == "powi":
+            if n.value == 2:
+                sched.append((vm.SQUARE, 0, n, n.args))
+            else:
+                sched.append((vm.POWI, n.value, n, n.args))
+        elif op == "add" and any(id(m) in fused for m in n.args):
+            m, other = (n.args[0], n.args[1]) if id(n.args[0]) in fused else (n.args[1], n.args[0])
+            sched.append((vm.MULADD, 0, n, (m.args[0], m.args[1], other)))
+        else:
+            sched.append((_OPCODES[op], 0, n, n.args))
+        for k in by_node.get(id(n), ()):
+            sched.append((vm.OUT, k, None, (n,)))
+    return sched
+
+
+def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool) -> tuple[np.ndarray, int]:
+    """Register program computing each ``out[k] = node``; returns (code, registers used)."""
+    sched = _schedule(outputs)
+    last: dict[int, int] = {}
+    for i, (_, _, _, operands) in enumerate(sched):
+        for m in operands:
+            last[id(m)] = i
+    rows: list[tuple] = []
+    reg: dict[int, int] = {}
+    free: list[int] = []
+    n_regs = 0
+    for i, (opc, extra, node, operands) in enumerate(sched):
+        srcs = [reg[id(m)] for m in operands]
+        for m in {id(m): m for m in operands}.values():
+            if last[id(m)] == i:
+                free.append(reg.pop(id(m)))
+        if opc == vm.OUT:
+            rows.append((vm.OUT, extra, srcs[0], 0, 0))
+            continue
+        if id(node) not in last:  # computed but never read (cannot happen for outputs)
+            continue
+        if free:
+            d = free.pop()
+        else:
+            d, n_regs = n_regs, n_regs + 1
+        reg[id(node)] = d
+        if opc == vm.CONST:
+            row = (opc, d, pool(extra), 0, 0)
+        elif opc in (vm.STATE, vm.PARAM, vm.TIME):
+            row = (opc, d, extra, 0, 0)
+        elif opc == vm.POWI:
+            row = (opc, d, srcs[0], extra, 0)
+        else:
+            row = (opc, d, *srcs, *([0] * (3 - len(srcs))))
+        rows.append(row)
+    code = np.array(rows, dtype=np.int32).reshape(len(rows), vm.N_FIELDS)
+    return code, max(n_regs, 1)
