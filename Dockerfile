@@ -1,0 +1,19 @@
+# One image for the API and the worker.
+FROM python:3.11-slim
+RUN apt-get update && apt-get install -y --no-install-recommends build-essential \
+    && rm -rf /var/lib/apt/lists/*
+WORKDIR /app
+COPY pyproject.toml README.md ./
+COPY engine engine
+COPY schemas schemas
+COPY service service
+COPY worker worker
+COPY jobs jobs
+COPY cli cli
+COPY examples examples
+RUN pip install --no-cache-dir .
+ENV NUMBA_CACHE_DIR=/var/cache/stifflane-numba PYTHONUNBUFFERED=1
+RUN useradd --create-home stifflane && mkdir -p $NUMBA_CACHE_DIR && chown stifflane $NUMBA_CACHE_DIR
+USER stifflane
+EXPOSE 8750
+CMD ["stifflane", "api", "--host", "0.0.0.0"]

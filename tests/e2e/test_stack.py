@@ -1,0 +1,103 @@
+"""One job from HTTP to result on real processes: gunicorn API, Celery worker, Redis."""
+import io
+import time
+
+import numpy as np
+import pytest
+import requests
+from scipy.linalg import expm
+
+pytestmark = pytest.mark.e2e
+
+# A linear system y' = A y with eigenvalues -1, -10 and -1e4 (chosen here; stiff ratio 1e4).
+# Oracle: y(t) = expm(A t) y0 (scipy.linalg.expm).
+EIG = np.array([-1.0, -10.0, -1.0e4])
+V = np.array([[1.0, 1.0, 0.0], [0.0, 1.0, 1.0], [1.0, 0.0, 1.0]])
+A = V @ np.diag(EIG) @ np.linalg.inv(V)
+Y0 = np.array([1.0, 0.5, 0.25])
+NAMES = ["x", "y", "z"]
+
+
+def linear_spec(rtol=1e-8, atol=1e-12, times=None, method="auto"):
+    ddt = {}
+    for i, name in enumerate(NAMES):
+        terms = [f"({A[i, j]!r})*{NAMES[j]}" for j in range(3)]
+        ddt[name] = " + ".join(terms)
+    return {
+        "label": "linear 3x3 (e2e)",
+        "model": {"title": "linear test system", "states": dict(zip(NAMES, Y0.tolist())), "ddt": ddt},
+        "span": [0.0, 2.0],
+        "output": {"times": times or [0.0, 0.001, 0.01, 0.1, 0.5, 1.0, 2.0]},
+        "tolerance": {"rtol": rtol, "atol": atol},
+        "method": method,
+    }
+
+
+# A harmonic oscillator over many periods at tight tolerance: a deliberately long job.
+LONG = {
+    "label": "long oscillator (e2e)",
+    "model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}},
+    "span": [0.0, 1.0e7], "output": {"count": 3}, "tolerance": {"rtol": 1e-12, "atol": 1e-14},
+    "method": "dopri5", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120},
+}
+
+
+def test_a_job_runs_from_submit_to_result_and_matches_expm(stack):
+    job_id = stack.submit(linear_spec())
+    view = stack.wait(job_id)
+    assert view["state"] == "succeeded", view
+    assert view["progress"] == 1.0 and view["digest"] is not None
+    result = requests.get(f"{stack.base}/v1/jobs/{job_id}/result", timeout=10).json()
+    t = np.array(result["times"])
+    y = np.column_stack([result["states"][n] for n in NAMES])
+    exact = np.array([expm(A * ti) @ Y0 for ti in t])
+    err = np.abs(y - exact) / (1e-12 + 1e-8 * np.abs(exact))
+    assert err.max() < 10  # within 10x of the requested tolerance (mixed error units)
+
+
+def test_results_come_as_csv_and_npz_by_negotiation(stack):
+    job_id = stack.submit(linear_spec())
+    stack.wait(job_id)
+    url = f"{stack.base}/v1/jobs/{job_id}/result"
+    csv = requests.get(url, headers={"Accept": "text/csv"}, timeout=10)
+    assert csv.headers["Content-Type"].startswith("text/csv")
+    header, *rows = csv.text.strip().splitlines()
+    assert header.split(",")[:4] == ["t", *NAMES] and len(rows) == 7
+    npz = requests.get(url + "?format=npz", timeout=10)
+    data = np.load(io.BytesIO(npz.content), allow_pickle=False)
+    assert data["y"].shape == (7, 3) and list(data["state_names"]) == NAMES
+
+
+def test_a_running_job_stops_within_two_seconds_of_cancel(stack):
+    job_id = stack.submit(LONG)
+    stack.wait(job_id, states=("running",), timeout=60)
+    time.sleep(0.5)
+    asked = time.time()
+    r = requests.post(f"{stack.base}/v1/jobs/{job_id}/cancel", timeout=10)
+    assert r.status_code == 202 and r.json()["cancel_requested"]
+    view = stack.wait(job_id, timeout=10)
+    assert view["state"] == "cancelled"
+    assert time.time() - asked < 2.5  # 2 s target plus polling slack
+
+
+def test_a_bad_spec_is_refused_and_never_queued(stack):
+    before = requests.get(f"{stack.base}/v1/jobs?limit=200", timeout=10).json()["items"]
+    spec = linear_spec()
+    spec["model"]["ddt"]["x"] = "__import__('os').system('id')"
+    r = requests.post(f"{stack.base}/v1/jobs", json=spec, timeout=10)
+    assert r.status_code == 422 and r.headers["Content-Type"] == "application/problem+json"
+    after = requests.get(f"{stack.base}/v1/jobs?limit=200", timeout=10).json()["items"]
+    assert len(after) == len(before)
+
+
+def test_kill_9_of_the_worker_mid_job_then_restart_finishes_the_job_once(stack):
+    spec = dict(LONG, span=[0.0, 3.0e5], label="killed mid-run (e2e)")
+    job_id = stack.submit(spec)
+    stack.wait(job_id, states=("running",), timeout=60)
+    stack.kill_worker()
+    stack.start_worker()
+    view = stack.wait(job_id, timeout=120)
+    assert view["state"] == "succeeded", view
+    assert view["attempt"] == 2
+    r = requests.get(f"{stack.base}/v1/jobs/{job_id}/result?format=json", timeout=10)
+    assert r.ok
