@@ -1,8 +1,11 @@
 """Public entry point of the integrators: ``integrate(kernel, ...) -> Solution``.
 
-TEMPORARY BACKEND: SciPy LSODA driving the register-machine kernel from Python.
-The engine's own compiled integrators replace the body of :func:`integrate`;
-the signature and the :class:`Solution` shape are the contract the worker uses.
+Methods: "dopri5" (Dormand-Prince 5(4), explicit), "radau5" (Radau IIA order
+5, implicit), "rodas" (Rodas4, Rosenbrock) and "auto" (starts explicit and
+switches by the policy of :mod:`engine.switching`). The compiled loop
+(:mod:`engine.driver`) runs in chunks; between chunks this wrapper calls the
+monitor, enforces the wall-time limit and resumes. The report vocabulary is
+documented in docs/engine.md.
 """
 from __future__ import annotations
 
@@ -11,9 +14,11 @@ from dataclasses import dataclass, field
 from typing import Callable, Optional
 
 import numpy as np
-from scipy.integrate import solve_ivp
 
-from engine import vm
+from engine import driver, state as S, vm
+from engine.report import build_report
+from engine.switching import N_POLICY, SwitchPolicy
+from engine.tableaux import DOPRI5, METHOD_NAMES, RADAU5, RODAS
 
 METHODS = ("auto", "dopri5", "radau5", "rodas")
 
@@ -26,6 +31,17 @@ STEP_LIMIT = "step_limit"
 TIME_LIMIT = "time_limit"
 CANCELLED = "cancelled"
 NON_FINITE = "non_finite"
+OUTCOMES = (SUCCEEDED, TOLERANCE_UNREACHABLE, STEP_UNDERFLOW, NEWTON_FAILURE, STEP_LIMIT,
+            TIME_LIMIT, CANCELLED, NON_FINITE)
+
+MIN_RTOL = 1e-13  # below this, double precision cannot deliver the tolerance
+_PINNED = {"auto": -1, "dopri5": DOPRI5, "radau5": RADAU5, "rodas": RODAS}
+_ORDER = {DOPRI5: 5, RADAU5: 3, RODAS: 4}
+_STATUS = {S.DONE: SUCCEEDED, S.ST_STEP_UNDERFLOW: STEP_UNDERFLOW,
+           S.ST_NEWTON_FAILURE: NEWTON_FAILURE, S.ST_STEP_LIMIT: STEP_LIMIT,
+           S.ST_NON_FINITE: NON_FINITE}
+HIST_ROWS = 1024   # step-history buffer (thinned by two when full)
+SWITCH_ROWS = 64   # switch-log rows kept (all switches are counted)
 
 
 @dataclass(frozen=True)
@@ -35,8 +51,14 @@ class SolverOptions:
     atol: np.ndarray | float = 1e-10  # scalar or per state
     max_steps: int = 1_000_000
     max_wall_seconds: float = 3600.0
-    nonnegative: bool = False
+    nonnegative: bool | np.ndarray = False  # all states, or a per-state mask
     first_step: Optional[float] = None
+    max_step: float = np.inf
+    event_directions: Optional[np.ndarray] = None  # per event: +1 rising, -1 falling, 0 both
+    event_terminal: Optional[np.ndarray] = None    # per event: True = stop the run there
+    max_events: int = 1000                         # event records kept
+    diagnostics: str = "full"  # "full" (eigenvalues, history) or "counts" (lean)
+    policy: SwitchPolicy = SwitchPolicy()
 
 
 @dataclass
@@ -49,10 +71,91 @@ class Solution:
     t_reached: float
     y_reached: np.ndarray
     report: dict = field(default_factory=dict)  # JSON-safe diagnostics
+    event_t: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    event_index: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
+    event_y: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
+    terminal_event: Optional[int] = None   # index of the event that stopped the run
 
 
 # monitor(fraction_done) -> True to stop (cancellation); called at most every 0.5 s.
 Monitor = Callable[[float], bool]
+
+
+class _Run:
+    """All arrays of one run (plain numpy; the compiled loop mutates them)."""
+
+    def __init__(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
+        n, ne = kernel.n, kernel.n_events
+        self.y = np.array(y0, dtype=np.float64)
+        self.y0 = self.y.copy()
+        self.p = np.ascontiguousarray(p, dtype=np.float64)
+        self.regs = np.zeros(max(kernel.n_regs, 1))
+        self.atol = np.broadcast_to(np.asarray(o.atol, dtype=np.float64), (n,)).copy()
+        self.pol = o.policy.as_array()
+        self.V = np.zeros((S.N_ROWS, n))
+        if o.nonnegative is not False and o.nonnegative is not None:
+            self.V[S.V_NNMASK] = np.broadcast_to(np.asarray(o.nonnegative, dtype=float), (n,))
+        self.cont = np.zeros((5, n))
+        implicit = o.method != "dopri5"
+        m = n if implicit else 0
+        self.J = np.zeros((m, m))
+        self.jv = np.zeros(len(kernel.jac_rows))
+        self.LU = np.zeros((m, m))
+        self.piv = np.zeros(m, dtype=np.int64)
+        self.LUc = np.zeros((m, m), dtype=np.complex128)
+        self.pivc = np.zeros(m, dtype=np.int64)
+        self.cbuf = np.zeros(m, dtype=np.complex128)
+        self.t_out = t_out
+        self.y_out = np.zeros((len(t_out), n))
+        self.gv = np.zeros((4, ne))
+        self.ev_dir = (np.zeros(ne, dtype=np.int64) if o.event_directions is None
+                       else np.asarray(o.event_directions, dtype=np.int64))
+        self.ev_term = (np.zeros(ne, dtype=np.bool_) if o.event_terminal is None
+                        else np.asarray(o.event_terminal, dtype=np.bool_))
+        cap = o.max_events if ne else 0
+        self.ev_t = np.zeros(cap)
+        self.ev_i = np.zeros(cap, dtype=np.int64)
+        self.ev_y = np.zeros((cap, n))
+        self.swlog = np.zeros((SWITCH_ROWS, 7))
+        self.hist = np.zeros((HIST_ROWS, 4))
+        fs = self.fs = np.zeros(S.N_FS)
+        fs[S.F_T] = fs[S.F_T0] = t0
+        fs[S.F_TEND] = t1
+        fs[S.F_H] = o.first_step or 0.0
+        fs[S.F_HMAX] = min(o.max_step, t1 - t0)
+        fs[S.F_RTOL] = o.rtol
+        fs[S.F_ERR_OLD] = 1e-4
+        fs[S.F_NEWTON_TOL] = max(10 * 2.22e-16 / o.rtol, min(0.03, o.rtol ** 0.5))
+        iw = self.iw = np.zeros(S.N_IW, dtype=np.int64)
+        pinned = _PINNED[o.method]
+        iw[S.I_PINNED] = pinned
+        iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
+        iw[S.I_MAX_STEPS] = o.max_steps
+        iw[S.I_HIST_STRIDE] = 1
+        iw[S.I_FIRST] = 1
+        iw[S.I_JAC_CURRENT] = -1
+        iw[S.I_NONNEG] = int(self.V[S.V_NNMASK].any())
+        iw[S.I_HAS_TIME] = int(bool((kernel.rhs_code[:, 0] == vm.TIME).any()))
+
+    def advance(self, kernel, budget):
+        driver.advance(kernel, self.p, self.regs, self.y, self.atol, self.pol, self.fs,
+                       self.iw, self.V, self.cont, self.J, self.jv, self.LU, self.piv,
+                       self.LUc, self.pivc, self.cbuf, self.t_out, self.y_out, self.gv,
+                       self.ev_dir, self.ev_term, self.ev_t, self.ev_i, self.ev_y,
+                       self.swlog, self.hist, budget)
+
+
+def _check(kernel, y0, t0, t1, t_out, o):
+    if o.method not in METHODS:
+        raise ValueError(f"unknown method '{o.method}'; choose one of {', '.join(METHODS)}")
+    if not (np.isfinite(t0) and np.isfinite(t1) and t1 > t0):
+        raise ValueError("t_span must be two finite times with t_end > t_start")
+    if len(y0) != kernel.n:
+        raise ValueError(f"y0 has {len(y0)} values, the model has {kernel.n} states")
+    if len(t_out) and (np.any(np.diff(t_out) < 0) or not np.all(np.isfinite(t_out))):
+        raise ValueError("t_out must be finite and non-decreasing")
+    if not (o.rtol > 0 and np.all(np.asarray(o.atol) >= 0)):
+        raise ValueError("rtol must be positive and atol non-negative")
 
 
 def integrate(
@@ -65,58 +168,100 @@ def integrate(
     monitor: Optional[Monitor] = None,
     conservation: Optional[np.ndarray] = None,
 ) -> Solution:
-    t0, t1 = float(t_span[0]), float(t_span[1])
-    regs = np.zeros(kernel.n_regs)
-    p = np.asarray(p, dtype=float)
-    out = np.empty(kernel.n)
-    vals = np.empty(len(kernel.jac_rows))
-    J = np.empty((kernel.n, kernel.n))
+    """Integrate y' = f(t, y; p) over t_span; states at ``t_out`` (inside the span)."""
     started = time.perf_counter()
-    last_beat = [started]
-    stop = [None]
+    o = options
+    t0, t1 = float(t_span[0]), float(t_span[1])
+    t_out = np.asarray(t_out, dtype=np.float64)
+    _check(kernel, y0, t0, t1, t_out, o)
+    t_out = t_out[(t_out >= t0) & (t_out <= t1)]
+    run = _Run(kernel, p, y0, t0, t1, t_out, o)
+    secs = np.zeros(3)
+    stop = None
+    if o.rtol < MIN_RTOL:
+        stop = TOLERANCE_UNREACHABLE
+    elif not driver.start(kernel, run.p, run.regs, run.y, run.atol, run.fs, run.iw,
+                          run.V, run.gv, _ORDER[int(run.iw[S.I_METHOD])]):
+        run.fs[S.F_T_BAD] = t0
+        stop = NON_FINITE
+    else:
+        stop = _loop(kernel, run, monitor, o, secs, started)
+    return _solution(kernel, run, stop, o, conservation, secs, started)
 
-    class _Stop(Exception):
-        pass
 
-    def f(t, y):
+def _loop(kernel, run, monitor, o, secs, started):
+    budget = 2000
+    last_beat = started
+    iw, fs = run.iw, run.fs
+    t0, t1 = fs[S.F_T0], fs[S.F_TEND]
+    while True:
+        method = int(iw[S.I_METHOD])
+        before = time.perf_counter()
+        run.advance(kernel, budget)
         now = time.perf_counter()
-        if now - last_beat[0] >= 0.5:
-            last_beat[0] = now
-            if now - started > options.max_wall_seconds:
-                stop[0] = TIME_LIMIT
-                raise _Stop
-            if monitor is not None and monitor((t - t0) / (t1 - t0)):
-                stop[0] = CANCELLED
-                raise _Stop
-        vm.rhs(kernel, t, y, p, regs, out)
-        return out.copy()
+        secs[method] += now - before
+        if iw[S.I_STATUS] != S.RUNNING:
+            return None
+        chunk = now - before
+        if chunk < 0.05:
+            budget = min(budget * 2, 1 << 30)
+        elif chunk > 0.2:
+            budget = max(budget // 2, 1)
+        if now - started > o.max_wall_seconds:
+            return TIME_LIMIT
+        if monitor is not None and now - last_beat >= 0.5:
+            last_beat = now
+            if monitor((fs[S.F_T] - t0) / (t1 - t0)):
+                return CANCELLED
 
-    def jac(t, y):
-        vm.jac_dense(kernel, t, y, p, regs, vals, J)
-        return J.copy()
 
-    t_eval = np.asarray(t_out, dtype=float)
-    try:
-        sol = solve_ivp(f, (t0, t1), np.asarray(y0, dtype=float), method="LSODA",
-                        t_eval=t_eval, jac=jac, rtol=options.rtol, atol=options.atol)
-        outcome = SUCCEEDED if sol.status == 0 else STEP_UNDERFLOW
-        message = "integrated to the end of the span" if sol.status == 0 else sol.message
-        t_res, y_res = sol.t, sol.y.T
-        nfev, njev, nsteps = int(sol.nfev), int(sol.njev), int(len(sol.t))
-    except _Stop:
-        outcome = stop[0]
-        message = {"cancelled": "cancelled on request",
-                   "time_limit": "wall-time limit reached; raise limits.max_wall_seconds"}[outcome]
-        t_res, y_res = np.zeros(0), np.zeros((0, kernel.n))
-        nfev = njev = nsteps = 0
-    aux = np.empty((len(t_res), kernel.n_aux))
-    for i in range(len(t_res)):
-        vm.aux(kernel, t_res[i], y_res[i], p, regs, aux[i])
-    y_end = y_res[-1] if len(t_res) else np.asarray(y0, dtype=float)
-    return Solution(
-        t=t_res, y=y_res, aux=aux, outcome=outcome, message=message,
-        t_reached=float(t_res[-1]) if len(t_res) else t0, y_reached=y_end,
-        report={"method_backend": "scipy-lsoda", "rhs_evaluations": nfev,
-                "jacobian_evaluations": njev, "output_points": nsteps,
-                "solve_seconds": time.perf_counter() - started},
-    )
+def _message(outcome, run, o, kernel):
+    t = float(run.fs[S.F_T])
+    msg = {
+        SUCCEEDED: "integrated to the end of the span",
+        TOLERANCE_UNREACHABLE: (f"rtol={o.rtol:g} is below what double precision can deliver; "
+                                f"use rtol >= {MIN_RTOL:g}"),
+        STEP_UNDERFLOW: (f"the step size fell to the round-off limit at t={t:.6g}; the solution "
+                         "may blow up or the model may be discontinuous there: check the model "
+                         "near this time or loosen the tolerances"),
+        NEWTON_FAILURE: (f"the implicit method's Newton iterations kept failing at t={t:.6g}; "
+                         "the model may be discontinuous or singular there: check the "
+                         "expressions and initial values, or try another method"),
+        STEP_LIMIT: (f"the step limit ({o.max_steps}) was reached at t={t:.6g}: raise max_steps, "
+                     "loosen the tolerances, or use method 'auto' if the problem is stiff"),
+        TIME_LIMIT: (f"the wall-time limit ({o.max_wall_seconds:g} s) was reached at t={t:.6g}: "
+                     "raise max_wall_seconds or loosen the tolerances"),
+        CANCELLED: f"cancelled on request at t={t:.6g}",
+        NON_FINITE: (f"the model produced non-finite values (NaN or infinity) near "
+                     f"t={float(run.fs[S.F_T_BAD]):.6g}; the last good state is at t={t:.6g}: "
+                     "check for division by zero, logarithms or roots of negative values, "
+                     "or overflow"),
+    }[outcome]
+    term = int(run.iw[S.I_TERMINAL])
+    if outcome == SUCCEEDED and term:
+        msg = f"stopped at terminal event {term - 1} at t={t:.6g}"
+    return msg
+
+
+def _solution(kernel, run, stop, o, conservation, secs, started):
+    outcome = stop or _STATUS[int(run.iw[S.I_STATUS])]
+    k = int(run.iw[S.I_IOUT])
+    t_res = run.t_out[:k].copy()
+    y_res = run.y_out[:k]
+    aux = np.empty((k, kernel.n_aux))
+    if kernel.n_aux:
+        driver_aux(kernel, t_res, y_res, run.p, run.regs, aux)
+    ne = min(int(run.iw[S.I_NEV_LOG]), len(run.ev_t))
+    term = int(run.iw[S.I_TERMINAL])
+    sol = Solution(
+        t=t_res, y=y_res, aux=aux, outcome=outcome, message=_message(outcome, run, o, kernel),
+        t_reached=float(run.fs[S.F_T]), y_reached=run.y.copy(),
+        event_t=run.ev_t[:ne].copy(), event_index=run.ev_i[:ne].copy(),
+        event_y=run.ev_y[:ne].copy(), terminal_event=(term - 1) if term else None)
+    sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
+    return sol
+
+
+def driver_aux(kernel, t, y, p, regs, out):
+    from engine.report import aux_at_outputs
+    aux_at_outputs(kernel, t, y, p, regs, out)

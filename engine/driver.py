@@ -1,0 +1,414 @@
+"""The compiled step loop shared by all methods.
+
+The driver owns the loop, the counters, the outcome and the bookkeeping of
+accepted steps (events, outputs, step history); each method module supplies
+only its step attempt, its interpolant and its step-size controller. The loop
+runs at most ``budget`` steps and then returns, so Python can report progress,
+honour cancellation and wall-time limits, and resume with the same arrays. It
+also returns right after a method switch (so time per method can be measured).
+"""
+import numpy as np
+from numba import njit
+
+from engine import dopri5, radau5, rodas, switching, vm
+from engine.errors_norm import initial_step
+from engine.events import dense_eval, scan
+from engine.state import (DONE, FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
+                          F_ERR_OLD, F_EXPL_NEEDED, F_H, F_H_LAST, F_H_LU, F_H_OLD,
+                          F_HEXP, F_HMAX, F_NEWTON_TOL, F_RHO, F_RTOL, F_T, F_T_BAD,
+                          F_T_OLD, F_TEND, I_ACCEPTED, I_CONT_METHOD, I_FAIL_KIND,
+                          I_FIRST, I_HAS_TIME, I_HAVE_CONT, I_HIST_N, I_HIST_STRIDE,
+                          I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
+                          I_MAX_STEPS, I_METHOD, I_NEV_LOG, I_NEWTON_FAIL,
+                          I_NEWTON_IT, I_NFEV, I_NJEV, I_NLU, I_NONNEG,
+                          I_NONNEG_REJECTS, I_NSWITCH, I_PINNED, I_REJECTED, I_RETURN,
+                          I_STATUS, I_STEPS_DOPRI5, I_STEPS_IN_METHOD, I_STIFF_POS,
+                          I_TERMINAL, RUNNING, ST_NEWTON_FAILURE, ST_NON_FINITE,
+                          ST_STEP_LIMIT, ST_STEP_UNDERFLOW, V_ERR, V_F, V_F0, V_FDT,
+                          V_K, V_NNMASK, V_PV, V_PW, V_SCALE, V_W, V_YEV, V_YNEW, V_YTMP, V_Z)
+from engine.switching import (P_BOUNDARY, P_POWER_ITERS, REASON_EXPLICIT_CHEAPER,
+                              REASON_STIFF)
+from engine.tableaux import DOPRI5, RADAU5, RODAS
+
+EPS = 2.220446049250313e-16
+
+
+@njit(cache=True, nogil=True)
+def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
+    """f(t0, y0), event values at t0 and the starting step (if fs[F_H] <= 0).
+
+    Returns False when f(t0, y0) is not finite."""
+    t = fs[F_T]
+    f0 = V[V_F0]
+    vm.rhs(kernel, t, y, p, regs, f0)
+    iw[I_NFEV] += 1
+    for i in range(y.shape[0]):
+        if not np.isfinite(f0[i]) or not np.isfinite(y[i]):
+            return False
+    if gv.shape[1] > 0:
+        vm.events(kernel, t, y, p, regs, gv[0])
+    if fs[F_H] <= 0.0:
+        fs[F_H] = initial_step(kernel, p, regs, t, y, f0, atol, fs[F_RTOL], order,
+                               min(fs[F_HMAX], fs[F_TEND] - t), V[V_YTMP], V[V_ERR])
+        iw[I_NFEV] += 1
+    return True
+
+
+@njit(cache=True, nogil=True)
+def _nonneg(ynew, y, atol, rtol, mask):
+    """0: all >= 0; 1: small negatives (clip); 2: significantly negative."""
+    worst = 0
+    for i in range(y.shape[0]):
+        if ynew[i] < 0.0 and mask[i] != 0.0:
+            if ynew[i] < -(atol[i] + rtol * abs(y[i])):
+                return 2
+            worst = 1
+    return worst
+
+
+@njit(cache=True, nogil=True)
+def _reject(fs, iw, h, fac, kind):
+    iw[I_REJECTED] += 1
+    iw[I_LAST_REJECTED] = 1
+    iw[I_FAIL_KIND] = kind
+    if kind == FAIL_NONFINITE:
+        fs[F_T_BAD] = fs[F_T] + h
+    fs[F_H] = h * fac
+
+
+@njit(cache=True, nogil=True)
+def _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol):
+    vm.jac_dense(kernel, t, y, p, regs, jv, J)
+    iw[I_NJEV] += 1
+    iw[I_JAC_CURRENT] = 1
+    iw[I_LU_VALID] = 0
+    rho = switching.spectral_radius(J, V[V_PV], V[V_PW], int(pol[P_POWER_ITERS]))
+    fs[F_RHO] = rho
+    fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
+
+
+@njit(cache=True, nogil=True)
+def _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
+    K = V[V_K:V_K + 7]
+    ynew = V[V_YNEW]
+    rtol = fs[F_RTOL]
+    err, rho = dopri5.attempt(kernel, p, regs, fs[F_T], y, h, K, ynew, V[V_YTMP],
+                              V[V_ERR], atol, rtol)
+    iw[I_NFEV] += dopri5.STAGE_EVALS
+    if not (err < np.inf):
+        _reject(fs, iw, h, 0.2, FAIL_NONFINITE)
+        return False
+    if err <= 1.0 and iw[I_NONNEG] and _nonneg(ynew, y, atol, rtol, V[V_NNMASK]) == 2:
+        iw[I_NONNEG_REJECTS] += 1
+        _reject(fs, iw, h, 0.5, FAIL_ERROR)
+        return False
+    fac = dopri5.step_factor(err, fs[F_ERR_OLD], iw[I_LAST_REJECTED])
+    if err > 1.0:
+        _reject(fs, iw, h, fac, FAIL_ERROR)
+        return False
+    fs[F_ERR_OLD] = max(err, 1e-4)
+    fs[F_RHO] = rho
+    fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
+    dopri5.prepare_dense(y, ynew, h, K, cont)
+    fs[F_H] = h * fac
+    return True
+
+
+@njit(cache=True, nogil=True)
+def _try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
+                pivc, cbuf, pol, h):
+    t = fs[F_T]
+    rtol = fs[F_RTOL]
+    n = y.shape[0]
+    if iw[I_JAC_CURRENT] < 0:
+        _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
+    if iw[I_LU_VALID] == 0 or fs[F_H_LU] != h:
+        iw[I_NLU] += 1
+        if not radau5.factor(J, h, LU, piv, LUc, pivc):
+            iw[I_LU_VALID] = 0
+            _reject(fs, iw, h, 0.5, FAIL_SINGULAR)
+            return False
+        iw[I_LU_VALID] = 1
+        fs[F_H_LU] = h
+    scale = V[V_SCALE]
+    for i in range(n):
+        scale[i] = atol[i] + rtol * abs(y[i])
+    Z = V[V_Z:V_Z + 3]
+    radau5.predict(cont, iw[I_HAVE_CONT] == 1 and iw[I_CONT_METHOD] == RADAU5,
+                   fs[F_T_OLD], fs[F_H_LAST], t, h, y, Z)
+    conv, nit, rate, nf = radau5.newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc,
+                                        Z, V[V_W:V_W + 3], V[V_F:V_F + 3], V[V_YTMP],
+                                        cbuf, scale, fs[F_NEWTON_TOL])
+    iw[I_NFEV] += nf
+    iw[I_NEWTON_IT] += nit
+    if not conv:
+        iw[I_NEWTON_FAIL] += 1
+        if iw[I_JAC_CURRENT] == 0:
+            _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
+            return False  # retry with a fresh Jacobian, same h
+        iw[I_LU_VALID] = 0
+        _reject(fs, iw, h, 0.5, FAIL_NONFINITE if rate < 0.0 else FAIL_NEWTON)
+        return False
+    ynew = V[V_YNEW]
+    refine = iw[I_FIRST] == 1 or iw[I_LAST_REJECTED] == 1
+    err, nf = radau5.error(kernel, p, regs, t, y, V[V_F0], h, LU, piv, Z, ynew,
+                           V[V_ERR], V[V_YTMP], atol, rtol, refine)
+    iw[I_NFEV] += nf
+    if not (err < np.inf):
+        iw[I_LU_VALID] = 0
+        _reject(fs, iw, h, 0.25, FAIL_NONFINITE)
+        return False
+    if err <= 1.0 and iw[I_NONNEG] and _nonneg(ynew, y, atol, rtol, V[V_NNMASK]) == 2:
+        iw[I_NONNEG_REJECTS] += 1
+        iw[I_LU_VALID] = 0
+        _reject(fs, iw, h, 0.5, FAIL_ERROR)
+        return False
+    if err > 1.0:
+        fac = radau5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, False)
+        iw[I_LU_VALID] = 0
+        _reject(fs, iw, h, fac, FAIL_ERROR)
+        return False
+    recompute_jac = nit > 2 and rate > 1e-3
+    fac = radau5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, True)
+    if iw[I_LAST_REJECTED] == 1:
+        fac = min(fac, 1.0)
+    if not recompute_jac and fac < 1.2 and fac >= 1.0:
+        fac = 1.0  # keep h, so the LU factors stay valid
+    else:
+        iw[I_LU_VALID] = 0
+    fs[F_H_OLD] = h
+    fs[F_ERR_OLD] = err
+    radau5.prepare_dense(y, Z, cont)
+    fs[F_H] = h * fac
+    iw[I_JAC_CURRENT] = -2 if recompute_jac else 0  # -2: refresh after the step
+    return True
+
+
+@njit(cache=True, nogil=True)
+def _try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h):
+    t = fs[F_T]
+    rtol = fs[F_RTOL]
+    n = y.shape[0]
+    f0 = V[V_F0]
+    fdt = V[V_FDT]
+    if iw[I_JAC_CURRENT] != 1:
+        _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
+        if iw[I_HAS_TIME]:
+            dt = np.sqrt(EPS) * max(abs(t), h)
+            vm.rhs(kernel, t + dt, y, p, regs, fdt)
+            iw[I_NFEV] += 1
+            for i in range(n):
+                fdt[i] = (fdt[i] - f0[i]) / dt
+        else:
+            fdt[:] = 0.0
+    if iw[I_LU_VALID] == 0 or fs[F_H_LU] != h:
+        iw[I_NLU] += 1
+        if not rodas.factor(J, h, LU, piv):
+            iw[I_LU_VALID] = 0
+            _reject(fs, iw, h, 0.5, FAIL_SINGULAR)
+            return False
+        iw[I_LU_VALID] = 1
+        fs[F_H_LU] = h
+    K = V[V_K:V_K + 6]
+    ynew = V[V_YNEW]
+    err, nf = rodas.attempt(kernel, p, regs, t, y, f0, fdt, h, LU, piv, K, ynew,
+                            V[V_YTMP], V[V_ERR], atol, rtol)
+    iw[I_NFEV] += nf
+    if not (err < np.inf):
+        _reject(fs, iw, h, 0.2, FAIL_NONFINITE)
+        return False
+    if err <= 1.0 and iw[I_NONNEG] and _nonneg(ynew, y, atol, rtol, V[V_NNMASK]) == 2:
+        iw[I_NONNEG_REJECTS] += 1
+        _reject(fs, iw, h, 0.5, FAIL_ERROR)
+        return False
+    first = iw[I_FIRST] == 1
+    if err > 1.0:
+        fac = rodas.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], False, first)
+        _reject(fs, iw, h, fac, FAIL_ERROR)
+        return False
+    fac = rodas.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], True, first)
+    if iw[I_LAST_REJECTED] == 1:
+        fac = min(fac, 1.0)
+    fs[F_H_OLD] = h
+    fs[F_ERR_OLD] = max(0.01, err)
+    rodas.prepare_dense(y, ynew, K, cont)
+    fs[F_H] = h * fac
+    iw[I_JAC_CURRENT] = 0  # a Rosenbrock step needs J at its own start point
+    return True
+
+
+@njit(cache=True, nogil=True)
+def _history(hist, iw, t, h, method, h_exp):
+    """Keep at most hist.shape[0] rows, thinning by two when full."""
+    if iw[I_ACCEPTED] % iw[I_HIST_STRIDE] != 0:
+        return
+    k = iw[I_HIST_N]
+    if k == hist.shape[0]:
+        half = k // 2
+        for j in range(half):
+            hist[j, :] = hist[2 * j + 1, :]
+        iw[I_HIST_N] = half
+        iw[I_HIST_STRIDE] *= 2
+        k = half
+        if iw[I_ACCEPTED] % iw[I_HIST_STRIDE] != 0:
+            return
+    hist[k, 0] = t
+    hist[k, 1] = h
+    hist[k, 2] = method
+    hist[k, 3] = h_exp if h_exp < np.inf else -1.0
+    iw[I_HIST_N] = k + 1
+
+
+@njit(cache=True, nogil=True)
+def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev_dir,
+            ev_term, ev_t, ev_i, ev_y, hist, h):
+    """Book an accepted step (y still the old state, V[V_YNEW] the new one).
+
+    Returns True when a terminal event stopped the run."""
+    method = iw[I_METHOD]
+    t_old = fs[F_T]
+    t_new = t_old + h
+    ynew = V[V_YNEW]
+    if iw[I_NONNEG] and _nonneg(ynew, y, atol, fs[F_RTOL], V[V_NNMASK]) == 1:
+        for i in range(y.shape[0]):
+            if ynew[i] < 0.0 and V[V_NNMASK, i] != 0.0:
+                ynew[i] = 0.0
+    t_stop, k_stop = scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir,
+                          ev_term, ev_t, ev_i, ev_y, iw[I_NEV_LOG:I_NEV_LOG + 2],
+                          V[V_YEV])
+    m = t_out.shape[0]
+    k = iw[I_IOUT]
+    while k < m and t_out[k] <= t_stop:
+        if t_out[k] == t_new:
+            y_out[k, :] = ynew
+        else:
+            dense_eval(method, cont, t_old, h, t_out[k], y_out[k])
+        k += 1
+    iw[I_IOUT] = k
+    iw[I_ACCEPTED] += 1
+    iw[I_STEPS_DOPRI5 + method] += 1
+    iw[I_STEPS_IN_METHOD] += 1
+    iw[I_LAST_REJECTED] = 0
+    iw[I_FIRST] = 0
+    iw[I_HAVE_CONT] = 1
+    iw[I_CONT_METHOD] = method
+    if fs[F_RHO] > 0.0:
+        fs[F_EXPL_NEEDED] += h * fs[F_RHO] / pol[P_BOUNDARY]
+    _history(hist, iw, t_new, h, method, fs[F_HEXP])
+    fs[F_T_OLD] = t_old
+    fs[F_H_LAST] = h
+    if k_stop >= 0:
+        y[:] = V[V_YEV]
+        fs[F_T] = t_stop
+        iw[I_TERMINAL] = k_stop + 1
+        iw[I_STATUS] = DONE
+        return True
+    y[:] = ynew
+    fs[F_T] = t_new
+    return False
+
+
+@njit(cache=True, nogil=True)
+def _switch(fs, iw, swlog, to, reason):
+    """Change method; reset the controller memory; ask Python for a return."""
+    iw[I_NSWITCH] = switching.log_switch(swlog, iw[I_NSWITCH], fs[F_T], iw[I_METHOD], to,
+                                         fs[F_H_LAST], fs[F_RHO], fs[F_HEXP], reason)
+    iw[I_METHOD] = to
+    iw[I_STEPS_IN_METHOD] = 0
+    iw[I_STIFF_POS] = 0
+    iw[I_STIFF_POS + 1] = 0
+    iw[I_FIRST] = 1
+    iw[I_LU_VALID] = 0
+    iw[I_JAC_CURRENT] = -1
+    fs[F_ERR_OLD] = 1e-4 if to == DOPRI5 else 0.0
+    fs[F_H_OLD] = 0.0
+    iw[I_RETURN] = 1
+
+
+@njit(cache=True, nogil=True)
+def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
+    """Work after an accepted step: f at the new point, Jacobian refresh,
+    and the switching decision in automatic mode."""
+    method = iw[I_METHOD]
+    t = fs[F_T]
+    f0 = V[V_F0]
+    if method == DOPRI5:
+        if iw[I_NONNEG]:
+            vm.rhs(kernel, t, y, p, regs, f0)  # state may have been clipped
+            iw[I_NFEV] += 1
+        else:
+            f0[:] = V[V_K + 6]
+        V[V_K, :] = f0
+    else:
+        vm.rhs(kernel, t, y, p, regs, f0)
+        iw[I_NFEV] += 1
+        if iw[I_JAC_CURRENT] == -2:
+            _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
+    if iw[I_PINNED] >= 0:
+        return
+    counters = iw[I_STIFF_POS:I_STIFF_POS + 2]
+    if method == DOPRI5:
+        if switching.explicit_says_stiff(pol, counters, fs[F_H_LAST], fs[F_RHO],
+                                         iw[I_STEPS_IN_METHOD]):
+            _switch(fs, iw, swlog, switching.implicit_choice(pol, fs[F_RTOL]),
+                    REASON_STIFF)
+    else:
+        if switching.implicit_says_nonstiff(pol, counters, fs[F_H_LAST], fs[F_RHO],
+                                            iw[I_STEPS_IN_METHOD]):
+            _switch(fs, iw, swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
+            fs[F_H] = min(fs[F_H], 0.5 * fs[F_HEXP])
+
+
+@njit(cache=True, nogil=True)
+def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc, pivc,
+            cbuf, t_out, y_out, gv, ev_dir, ev_term, ev_t, ev_i, ev_y, swlog, hist,
+            budget):
+    """Run up to ``budget`` steps (or to the end, a failure, or a switch)."""
+    m = t_out.shape[0]
+    steps = 0
+    while iw[I_STATUS] == RUNNING:
+        t = fs[F_T]
+        k = iw[I_IOUT]
+        while k < m and t_out[k] <= t:
+            y_out[k, :] = y
+            k += 1
+        iw[I_IOUT] = k
+        tend = fs[F_TEND]
+        if t >= tend:
+            iw[I_STATUS] = DONE
+            break
+        if iw[I_RETURN] == 1:
+            iw[I_RETURN] = 0
+            return
+        if steps >= budget:
+            return
+        if iw[I_ACCEPTED] + iw[I_REJECTED] >= iw[I_MAX_STEPS]:
+            iw[I_STATUS] = ST_STEP_LIMIT
+            break
+        h = min(fs[F_H], fs[F_HMAX])
+        if t + 1.01 * h >= tend:
+            h = tend - t
+        if h < 16.0 * EPS * abs(t) or not (h > 0.0):
+            kind = iw[I_FAIL_KIND]
+            if kind == FAIL_NONFINITE:
+                iw[I_STATUS] = ST_NON_FINITE
+            elif kind == FAIL_NEWTON or kind == FAIL_SINGULAR:
+                iw[I_STATUS] = ST_NEWTON_FAILURE
+            else:
+                iw[I_STATUS] = ST_STEP_UNDERFLOW
+            break
+        steps += 1
+        method = iw[I_METHOD]
+        if method == DOPRI5:
+            ok = _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h)
+        elif method == RADAU5:
+            ok = _try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
+                             LUc, pivc, cbuf, pol, h)
+        else:
+            ok = _try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
+                            pol, h)
+        if ok:
+            if _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv,
+                       ev_dir, ev_term, ev_t, ev_i, ev_y, hist, h):
+                break
+            _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog)

@@ -1,0 +1,135 @@
+"""Dense LU factorisation with partial pivoting, real and complex, compiled.
+
+Own loops: for the small and medium systems of chemical kinetics (n up to a
+few hundred) they beat a call into LAPACK through an object boundary, and they
+run inside the compiled step loop. Large sparse systems use SuperLU instead
+(see ``engine.sparse``).
+"""
+import numpy as np
+from numba import njit
+
+
+@njit(cache=True, nogil=True)
+def lu_factor(a, piv):
+    """In-place LU of ``a`` (row pivots into ``piv``); returns False if singular."""
+    n = a.shape[0]
+    for k in range(n):
+        p = k
+        big = abs(a[k, k])
+        for i in range(k + 1, n):
+            v = abs(a[i, k])
+            if v > big:
+                big = v
+                p = i
+        piv[k] = p
+        if big == 0.0:
+            return False
+        if p != k:
+            for j in range(n):
+                tmp = a[k, j]
+                a[k, j] = a[p, j]
+                a[p, j] = tmp
+        inv = 1.0 / a[k, k]
+        for i in range(k + 1, n):
+            a[i, k] *= inv
+        for i in range(k + 1, n):
+            m = a[i, k]
+            if m != 0.0:
+                for j in range(k + 1, n):
+                    a[i, j] -= m * a[k, j]
+    return True
+
+
+@njit(cache=True, nogil=True)
+def lu_solve(a, piv, b):
+    """Solve in place: ``b`` <- A^-1 b using the factors from :func:`lu_factor`."""
+    n = a.shape[0]
+    for k in range(n):
+        p = piv[k]
+        if p != k:
+            tmp = b[k]
+            b[k] = b[p]
+            b[p] = tmp
+    for i in range(n):
+        s = b[i]
+        for j in range(i):
+            s -= a[i, j] * b[j]
+        b[i] = s
+    for i in range(n - 1, -1, -1):
+        s = b[i]
+        for j in range(i + 1, n):
+            s -= a[i, j] * b[j]
+        b[i] = s / a[i, i]
+
+
+@njit(cache=True, nogil=True)
+def clu_factor(a, piv):
+    """Complex in-place LU with partial pivoting (same contract as lu_factor)."""
+    n = a.shape[0]
+    for k in range(n):
+        p = k
+        big = abs(a[k, k].real) + abs(a[k, k].imag)
+        for i in range(k + 1, n):
+            v = abs(a[i, k].real) + abs(a[i, k].imag)
+            if v > big:
+                big = v
+                p = i
+        piv[k] = p
+        if big == 0.0:
+            return False
+        if p != k:
+            for j in range(n):
+                tmp = a[k, j]
+                a[k, j] = a[p, j]
+                a[p, j] = tmp
+        inv = 1.0 / a[k, k]
+        for i in range(k + 1, n):
+            a[i, k] *= inv
+        for i in range(k + 1, n):
+            m = a[i, k]
+            if m != 0.0:
+                for j in range(k + 1, n):
+                    a[i, j] -= m * a[k, j]
+    return True
+
+
+@njit(cache=True, nogil=True)
+def clu_solve(a, piv, b):
+    """Complex in-place solve with the factors from :func:`clu_factor`."""
+    n = a.shape[0]
+    for k in range(n):
+        p = piv[k]
+        if p != k:
+            tmp = b[k]
+            b[k] = b[p]
+            b[p] = tmp
+    for i in range(n):
+        s = b[i]
+        for j in range(i):
+            s -= a[i, j] * b[j]
+        b[i] = s
+    for i in range(n - 1, -1, -1):
+        s = b[i]
+        for j in range(i + 1, n):
+            s -= a[i, j] * b[j]
+        b[i] = s / a[i, i]
+
+
+@njit(cache=True, nogil=True)
+def shifted(J, shift, a):
+    """a <- shift * I - J (real)."""
+    n = J.shape[0]
+    for i in range(n):
+        for j in range(n):
+            a[i, j] = -J[i, j]
+        a[i, i] += shift
+
+
+@njit(cache=True, nogil=True)
+def cshifted(J, shift_re, shift_im, a):
+    """a <- (shift_re + i shift_im) * I - J (complex)."""
+    n = J.shape[0]
+    for i in range(n):
+        for j in range(n):
+            a[i, j] = -J[i, j]
+        a[i, i] += complex(shift_re, shift_im)

@@ -1,0 +1,133 @@
+"""Automatic stiff / non-stiff switching policy (parameterised, with hysteresis).
+
+- Explicit -> implicit: Dormand-Prince estimates h * rho from its last two
+  stages (Hairer & Wanner II, sec. IV.2); after ``stiff_tests`` consecutive
+  steps with h * rho > ``boundary`` the step is limited by stability, not by
+  accuracy, and the run switches to an implicit method (Radau5 below
+  ``radau_below_rtol``, Rodas otherwise).
+- Implicit -> explicit: rho is estimated from the Jacobian (power iteration);
+  when the explicit stability-limited step boundary / rho is at least
+  ``back_ratio`` times the implicit step for ``nonstiff_tests`` consecutive
+  steps, the explicit method is cheaper again (the idea of Petzold 1983, SIAM
+  J. Sci. Stat. Comput. 4:136-148, for Adams/BDF).
+- Hysteresis: no switch before ``min_steps`` steps in the current method.
+
+Every switch is logged as a row (t, from, to, h, rho, explicit step, reason).
+"""
+from dataclasses import dataclass
+
+import numpy as np
+from numba import njit
+
+# Indices into the policy array.
+P_BOUNDARY, P_STIFF_TESTS, P_NONSTIFF_TESTS, P_BACK_RATIO = 0, 1, 2, 3
+P_MIN_STEPS, P_RADAU_RTOL, P_RESET_AFTER, P_POWER_ITERS = 4, 5, 6, 7
+N_POLICY = 8
+
+# Reason codes in the switch log.
+REASON_STIFF = 1
+REASON_EXPLICIT_CHEAPER = 2
+REASON_NAMES = {REASON_STIFF: "stiffness_detected",
+                REASON_EXPLICIT_CHEAPER: "explicit_step_competitive"}
+LOG_COLUMNS = ("t", "from", "to", "h", "rho", "explicit_step", "reason")
+
+
+@dataclass(frozen=True)
+class SwitchPolicy:
+    boundary: float = 3.3          # real-axis stability boundary of DOPRI5
+    stiff_tests: int = 15          # consecutive positive stiffness tests
+    nonstiff_tests: int = 6        # consecutive "explicit would do" tests
+    back_ratio: float = 1.0        # boundary/rho >= back_ratio * h_implicit
+    min_steps: int = 20            # hysteresis: steps before another switch
+    radau_below_rtol: float = 1e-7  # implicit method: radau5 below, rodas above
+    reset_after: int = 6           # non-stiff tests that clear the stiff count
+    power_iterations: int = 6      # per Jacobian, warm-started
+
+    def as_array(self) -> np.ndarray:
+        return np.array([self.boundary, self.stiff_tests, self.nonstiff_tests,
+                         self.back_ratio, self.min_steps, self.radau_below_rtol,
+                         self.reset_after, self.power_iterations], dtype=np.float64)
+
+
+@njit(cache=True, nogil=True)
+def explicit_says_stiff(pol, counters, h, rho, steps_in_method):
+    """Update the stiffness counters after an accepted explicit step.
+
+    ``counters[0]`` counts consecutive positive tests, ``counters[1]``
+    consecutive negative ones. Returns True when the run should go implicit.
+    """
+    if h * rho > pol[P_BOUNDARY]:
+        counters[0] += 1
+        counters[1] = 0
+    else:
+        counters[1] += 1
+        if counters[1] >= pol[P_RESET_AFTER]:
+            counters[0] = 0
+    return counters[0] >= pol[P_STIFF_TESTS] and steps_in_method >= pol[P_MIN_STEPS]
+
+
+@njit(cache=True, nogil=True)
+def implicit_says_nonstiff(pol, counters, h, rho, steps_in_method):
+    """Update counters after an accepted implicit step; True = go explicit."""
+    h_exp = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
+    if h_exp >= pol[P_BACK_RATIO] * h:
+        counters[1] += 1
+    else:
+        counters[1] = 0
+    return counters[1] >= pol[P_NONSTIFF_TESTS] and steps_in_method >= pol[P_MIN_STEPS]
+
+
+@njit(cache=True, nogil=True)
+def log_switch(log, n_logged, t, m_from, m_to, h, rho, h_exp, reason):
+    """Append one row to the fixed-size switch log; returns the new count."""
+    if n_logged < log.shape[0]:
+        row = log[n_logged]
+        row[0] = t
+        row[1] = m_from
+        row[2] = m_to
+        row[3] = h
+        row[4] = rho
+        row[5] = h_exp
+        row[6] = reason
+    return n_logged + 1
+
+
+@njit(cache=True, nogil=True)
+def implicit_choice(pol, rtol):
+    """1 = radau5, 2 = rodas (ids of engine.tableaux)."""
+    return 1 if rtol < pol[P_RADAU_RTOL] else 2
+
+
+@njit(cache=True, nogil=True)
+def spectral_radius(J, v, w, iters):
+    """Power-iteration estimate of the spectral radius of J, warm-started
+    from ``v`` (updated in place). Returns the largest ratio seen."""
+    n = J.shape[0]
+    nv = 0.0
+    for i in range(n):
+        nv += v[i] * v[i]
+    if not (nv > 0.0):
+        for i in range(n):
+            v[i] = 1.0 + 0.1 * i / max(n, 1)
+        nv = 0.0
+        for i in range(n):
+            nv += v[i] * v[i]
+    rho = 0.0
+    for _ in range(iters):
+        nw = 0.0
+        for i in range(n):
+            acc = 0.0
+            for j in range(n):
+                acc += J[i, j] * v[j]
+            w[i] = acc
+            nw += acc * acc
+        if not (nw > 0.0) or not np.isfinite(nw):
+            break
+        ratio = np.sqrt(nw / nv)
+        if ratio > rho:
+            rho = ratio
+        s = 1.0 / np.sqrt(nw)
+        for i in range(n):
+            v[i] = w[i] * s
+        nv = 1.0
+    return rho
