@@ -95,7 +95,16 @@ BINARY = {
 
 
 def powi(x: float, n: int) -> float:
-    return _pow(x, float(n))
+    """x**n by repeated squaring, exactly as engine.vm computes it."""
+    if n < 0:
+        x, n = _div(1.0, x), -n
+    r = 1.0
+    while n:
+        if n & 1:
+            r *= x
+        x *= x
+        n >>= 1
+    return r
 
 
 class Builder:
@@ -234,7 +243,7 @@ class Builder:
         if n == 1:
             return x
         if x.is_const:
-            folded = self._fold(_pow, x.value, float(n))
+            folded = self._fold(powi, x.value, n)
             if folded is not None:
                 return folded
         if x.op == "powi" and abs(x.value * n) <= self.max_exponent:
@@ -520,6 +529,9 @@ class _Parser:
         if kind == "name":
             if v.startswith("__"):
                 raise ExprError(f"names starting with '__' are not allowed: {v!r}", pos)
+            if v in ("and", "or", "not"):
+                raise ExprError(f"unexpected keyword '{v}'; put a condition in parentheses, "
+                                "e.g. (not x > 1)", pos)
             if self.peek()[1] == "(" and self.peek()[0] == "op":
                 return self.p_call(v, pos)
             return self.p_name(v, pos)
@@ -536,8 +548,6 @@ class _Parser:
         self.count(pos)
         if name in FUNCTIONS:
             raise ExprError(f"'{name}' is a function; call it as {name}(...)", pos)
-        if name in ("and", "or", "not"):
-            raise ExprError(f"unexpected keyword '{name}'", pos)
         if name == TIME:
             return self.b.time()
         if name in CONSTANTS:

@@ -69,7 +69,8 @@ class Kernel(NamedTuple):
     n_events: int
 
 
-@njit(cache=True, nogil=True)
+# error_model="numpy": x/0 gives inf/nan like numpy instead of raising ZeroDivisionError.
+@njit(cache=True, nogil=True, error_model="numpy")
 def run(code, consts, t, y, p, regs, out):
     """Execute one program: read ``t``, ``y``, ``p``; write ``out``."""
     for k in range(code.shape[0]):
@@ -169,7 +170,7 @@ def _log(x):
     return math.nan
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _powi(x, n):
     if n < 0:
         x = 1.0 / x
@@ -183,7 +184,7 @@ def _powi(x, n):
     return r
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, inline="always", error_model="numpy")
 def _pow(x, e):
     if x < 0.0 and e != math.floor(e):
         return math.nan
