@@ -340,7 +340,7 @@ class _Reader:
 def _read_states(r: _Reader, model):
     spec, b = r.spec, r.spec.builder
     states = r.section(model, "states", dict, r.limits.max_states)
-    if not states and "states" in model and isinstance(model.get("states"), dict):
+    if isinstance(model.get("states"), dict) and not model["states"]:
         r.issue(("states",), "declare at least one state")
     for name, v in states.items():
         path = ("states", name)
