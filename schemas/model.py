@@ -1,0 +1,59 @@
+"""The ``model`` object of a job spec: a marshmallow field that checks the whole
+model language by calling the engine (``engine.model.check_model``).
+
+Errors are raised as one ``ValidationError`` whose messages are nested by the
+path inside the model, e.g. ``{"ddt": {"A": ["position 7: unknown name 'kf';
+did you mean 'k_f'?"]}}`` or ``{"reactions": {3: {"equation": [...]}}}``, so the
+job schema can turn them into JSON pointers such as ``/model/ddt/A``. Problems
+with the model object as a whole sit under ``"_schema"``.
+"""
+from __future__ import annotations
+
+from marshmallow import ValidationError, fields
+
+from engine.limits import Limits
+from engine.model import ModelIssue, check_model
+
+SCHEMA_KEY = "_schema"
+
+
+def issues_to_messages(issues: list[ModelIssue]) -> dict:
+    """Nest issue texts by path; a path that is both a leaf and a prefix keeps its
+    own messages under ``"_schema"``."""
+    messages: dict = {}
+    for issue in issues:
+        node = messages
+        path = list(issue.path) or [SCHEMA_KEY]
+        for key in path[:-1]:
+            child = node.get(key)
+            if isinstance(child, list):
+                child = node[key] = {SCHEMA_KEY: child}
+            node = node.setdefault(key, {})
+        leaf = path[-1]
+        if isinstance(node.get(leaf), dict):
+            node[leaf].setdefault(SCHEMA_KEY, []).append(issue.text())
+        else:
+            node.setdefault(leaf, []).append(issue.text())
+    return messages
+
+
+class ModelField(fields.Field):
+    """A model in the Stifflane model language (see docs/model-language.md)."""
+
+    def __init__(self, limits: Limits | None = None, **kwargs):
+        kwargs.setdefault("metadata", {}).setdefault(
+            "description", "the model: states, parameters, derived, ddt, reactions, events "
+                           "(see docs/model-language.md)")
+        super().__init__(**kwargs)
+        self.limits = limits
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if not isinstance(value, dict):
+            raise ValidationError("must be an object with 'states' and 'ddt' and/or 'reactions'")
+        issues = check_model(value, self.limits)
+        if issues:
+            raise ValidationError(issues_to_messages(issues))
+        return value
+
+    def _serialize(self, value, attr, obj, **kwargs):
+        return value
