@@ -2,7 +2,7 @@
 
 - Explicit -> implicit: Dormand-Prince estimates h * rho from its last two
   stages (Hairer & Wanner II, sec. IV.2); after ``stiff_tests`` consecutive
-  steps with h * rho > ``boundary`` the step is limited by stability, not by
+  steps with h * rho > ``stiff_threshold`` the step is limited by stability, not by
   accuracy, and the run switches to an implicit method (Radau5 below
   ``radau_below_rtol``, Rodas otherwise).
 - Implicit -> explicit: rho is estimated from the Jacobian (power iteration);
@@ -22,7 +22,8 @@ from numba import njit
 # Indices into the policy array.
 P_BOUNDARY, P_STIFF_TESTS, P_NONSTIFF_TESTS, P_BACK_RATIO = 0, 1, 2, 3
 P_MIN_STEPS, P_RADAU_RTOL, P_RESET_AFTER, P_POWER_ITERS = 4, 5, 6, 7
-N_POLICY = 8
+P_STIFF_THRESHOLD = 8
+N_POLICY = 9
 
 # Reason codes in the switch log.
 REASON_STIFF = 1
@@ -42,11 +43,14 @@ class SwitchPolicy:
     radau_below_rtol: float = 1e-7  # implicit method: radau5 below, rodas above
     reset_after: int = 6           # non-stiff tests that clear the stiff count
     power_iterations: int = 6      # per Jacobian, warm-started
+    stiff_threshold: float = 3.25  # h*rho above this is a positive test (< boundary,
+                                   # since the controller hovers around the boundary)
 
     def as_array(self) -> np.ndarray:
         return np.array([self.boundary, self.stiff_tests, self.nonstiff_tests,
                          self.back_ratio, self.min_steps, self.radau_below_rtol,
-                         self.reset_after, self.power_iterations], dtype=np.float64)
+                         self.reset_after, self.power_iterations,
+                         self.stiff_threshold], dtype=np.float64)
 
 
 @njit(cache=True, nogil=True)
@@ -56,7 +60,7 @@ def explicit_says_stiff(pol, counters, h, rho, steps_in_method):
     ``counters[0]`` counts consecutive positive tests, ``counters[1]``
     consecutive negative ones. Returns True when the run should go implicit.
     """
-    if h * rho > pol[P_BOUNDARY]:
+    if h * rho > pol[P_STIFF_THRESHOLD]:
         counters[0] += 1
         counters[1] = 0
     else:

@@ -1,0 +1,133 @@
+"""Test problems as engine kernels.
+
+``linear_kernel`` builds the register programs of y' = A y by hand (it depends
+only on engine.vm); the published nonlinear problems are written in the model
+language and prepared with engine.model.prepare.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+from engine import vm
+from engine.model import prepare
+
+
+def _code(ops):
+    return np.array(ops, dtype=np.int32).reshape(-1, vm.N_FIELDS)
+
+
+def linear_kernel(A: np.ndarray) -> vm.Kernel:
+    """Hand-built kernel for y' = A y.
+
+    Registers 0..n-1 hold the states, n the row accumulator, n+1 a constant.
+    """
+    A = np.asarray(A, dtype=float)
+    n = A.shape[0]
+    acc, c = n, n + 1
+    rhs = [(vm.STATE, j, j, 0, 0) for j in range(n)]
+    for i in range(n):
+        rhs.append((vm.CONST, acc, i * n, 0, 0))
+        rhs.append((vm.MUL, acc, acc, 0, 0))            # acc = A[i,0] * y_0
+        for j in range(1, n):
+            rhs.append((vm.CONST, c, i * n + j, 0, 0))
+            rhs.append((vm.MULADD, acc, c, j, acc))     # acc += A[i,j] * y_j
+        rhs.append((vm.OUT, i, acc, 0, 0))
+    jac, rows, cols = [], [], []
+    for i in range(n):
+        for j in range(n):
+            if A[i, j] != 0.0:
+                jac.append((vm.CONST, 0, i * n + j, 0, 0))
+                jac.append((vm.OUT, len(rows), 0, 0, 0))
+                rows.append(i)
+                cols.append(j)
+    return vm.Kernel(n=n, n_regs=n + 2, consts=A.ravel().copy(), rhs_code=_code(rhs),
+                     jac_code=_code(jac), jac_rows=np.array(rows, dtype=np.int64),
+                     jac_cols=np.array(cols, dtype=np.int64), aux_code=vm.empty_code(),
+                     n_aux=0, event_code=vm.empty_code(), n_events=0)
+
+
+def matrix_with_eigenvalues(lams, seed=1) -> np.ndarray:
+    """A = V diag(lams) V^-1 with a well-conditioned random V (invented data)."""
+    rng = np.random.default_rng(seed)
+    n = len(lams)
+    V = np.eye(n) + 0.3 * rng.standard_normal((n, n)) / np.sqrt(n)
+    return V @ np.diag(lams) @ np.linalg.inv(V)
+
+
+# Robertson 1966 chemical kinetics; Hairer & Wanner II, sec. IV.1, eq. (1.4).
+ROBERTSON = {
+    "title": "Robertson",
+    "states": {"y1": 1.0, "y2": 0.0, "y3": 0.0},
+    "parameters": {"k1": 0.04, "k2": 3e7, "k3": 1e4},
+    "ddt": {"y1": "-k1*y1 + k3*y2*y3",
+            "y2": "k1*y1 - k3*y2*y3 - k2*y2^2",
+            "y3": "k2*y2^2"},
+}
+
+# HIRES, Schaefer 1975; Hairer & Wanner II, sec. IV.10; Test Set for IVP Solvers.
+HIRES = {
+    "title": "HIRES",
+    "states": {"y1": 1.0, "y2": 0.0, "y3": 0.0, "y4": 0.0, "y5": 0.0, "y6": 0.0,
+               "y7": 0.0, "y8": 0.0057},
+    "ddt": {"y1": "-1.71*y1 + 0.43*y2 + 8.32*y3 + 0.0007",
+            "y2": "1.71*y1 - 8.75*y2",
+            "y3": "-10.03*y3 + 0.43*y4 + 0.035*y5",
+            "y4": "8.32*y2 + 1.71*y3 - 1.12*y4",
+            "y5": "-1.745*y5 + 0.43*y6 + 0.43*y7",
+            "y6": "-280*y6*y8 + 0.69*y4 + 1.71*y5 - 0.43*y6 + 0.69*y7",
+            "y7": "280*y6*y8 - 1.81*y7",
+            "y8": "-280*y6*y8 + 1.81*y7"},
+}
+HIRES_END = 321.8122
+
+# Van der Pol oscillator x'' - mu (1 - x^2) x' + x = 0, stiff for large mu
+# (Hairer & Wanner II, sec. IV.1, unscaled form; period about (3 - 2 ln 2) mu).
+VAN_DER_POL = {
+    "title": "Van der Pol",
+    "states": {"x": 2.0, "v": 0.0},
+    "parameters": {"mu": 1000.0},
+    "ddt": {"x": "v", "v": "mu*(1 - x^2)*v - x"},
+}
+
+# Arenstorf orbit, Hairer, Norsett & Wanner I, sec. II.0, eq. (0.1); periodic.
+ARENSTORF = {
+    "title": "Arenstorf",
+    "states": {"y1": 0.994, "y2": 0.0, "v1": 0.0,
+               "v2": -2.00158510637908252240537862224},
+    "parameters": {"mu": 0.012277471},
+    "derived": {"d1": "((y1 + mu)^2 + y2^2)^1.5", "d2": "((y1 - 1 + mu)^2 + y2^2)^1.5"},
+    "ddt": {"y1": "v1", "y2": "v2",
+            "v1": "y1 + 2*v2 - (1 - mu)*(y1 + mu)/d1 - mu*(y1 - 1 + mu)/d2",
+            "v2": "y2 - 2*v1 - (1 - mu)*y2/d1 - mu*y2/d2"},
+}
+ARENSTORF_PERIOD = 17.0652165601579625588917206249
+
+# Lorenz 1963 (sigma = 10, rho = 28, beta = 8/3); non-stiff.
+LORENZ = {
+    "title": "Lorenz",
+    "states": {"x": 1.0, "y": 1.0, "z": 1.0},
+    "parameters": {"s": 10.0, "r": 28.0, "b": 8 / 3},
+    "ddt": {"x": "s*(y - x)", "y": "x*(r - z) - y", "z": "x*y - b*z"},
+}
+
+
+def model(spec: dict):
+    return prepare(spec)
+
+
+def scipy_rhs(kernel, p):
+    """f(t, y) and J(t, y) through the same kernel, for SciPy oracles."""
+    regs = np.zeros(max(kernel.n_regs, 1))
+    vals = np.zeros(len(kernel.jac_rows))
+
+    def f(t, y):
+        out = np.empty(kernel.n)
+        vm.rhs(kernel, t, np.ascontiguousarray(y, dtype=float), p, regs, out)
+        return out
+
+    def jac(t, y):
+        J = np.empty((kernel.n, kernel.n))
+        vm.jac_dense(kernel, t, np.ascontiguousarray(y, dtype=float), p, regs, vals, J)
+        return J
+
+    return f, jac
