@@ -51,6 +51,29 @@ def worker_command(concurrency: int, queues: str | None = None) -> list[str]:
             "--max-memory-per-child", "2000000", "-n", f"stifflane-{os.getpid()}@%h"]
 
 
+def check_redis(redis_url: str | None = None) -> None:
+    """Refuse a Redis configured to evict (it would silently drop queued jobs)."""
+    from dataclasses import replace
+
+    import redis as redis_lib
+
+    from jobs.settings import Settings
+    from jobs.store import JobStore
+
+    settings = Settings.from_env()
+    if redis_url:
+        settings = replace(settings, redis_url=redis_url)
+    try:
+        problems = JobStore.connect(settings).durability_problems()
+    except redis_lib.RedisError as e:
+        print(f"warning: cannot check Redis at start ({e}); continuing", file=sys.stderr)
+        return
+    for p in problems:
+        print(f"redis: {p}", file=sys.stderr)
+    if any("maxmemory-policy" in p for p in problems):
+        raise SystemExit("refusing to start on a Redis that evicts keys")
+
+
 def cmd_warm(_args) -> int:
     started = time.perf_counter()
     from engine.warmup import warm_up
@@ -74,11 +97,13 @@ def cmd_redis(args) -> int:
 
 
 def cmd_api(args) -> int:
+    check_redis()
     os.execvpe(sys.executable, api_command(args.host, args.port, args.workers), _env())
 
 
 def cmd_worker(args) -> int:
     env = _env()
+    check_redis()
     subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True)
     os.execvpe(sys.executable, worker_command(args.concurrency), env)
 
@@ -126,6 +151,7 @@ def cmd_up(args) -> int:
             procs.append(("redis", start_redis(args.redis_port, ROOT / "var" / "redis")))
             redis_url = f"redis://127.0.0.1:{args.redis_port}/0"
         env = _env(redis_url)
+        check_redis(redis_url)
         print(f"redis: {redis_url}")
         subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True, cwd=ROOT)
         procs.append(("worker", subprocess.Popen(worker_command(args.concurrency), env=env, cwd=ROOT)))

@@ -91,6 +91,20 @@ class JobStore:
         options.update(client_options)
         return cls(redis.Redis.from_url(settings.redis_url, **options), settings)
 
+    def durability_problems(self) -> list[str]:
+        """Why this Redis is unfit to hold jobs (empty when it is fine).
+
+        An eviction policy would silently drop queued jobs; without AOF a crash
+        loses every change since the last snapshot.
+        """
+        config = self.r.config_get("maxmemory-policy") | self.r.config_get("appendonly")
+        problems = []
+        if config.get("maxmemory-policy", "noeviction") not in ("noeviction", b"noeviction"):
+            problems.append(f"maxmemory-policy is {config['maxmemory-policy']}; set it to noeviction")
+        if config.get("appendonly") in ("no", b"no"):
+            problems.append("appendonly is off; results can be lost on a crash (set appendonly yes)")
+        return problems
+
     def _script_keys(self, job_id: str, *extra: str) -> list[str]:
         return [self.keys.job(job_id), *self.keys.state_indexes(), *extra]
 

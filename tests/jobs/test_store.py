@@ -118,3 +118,14 @@ def test_result_blobs_round_trip_arrays_and_refuse_non_finite_metadata():
     assert np.array_equal(arrays["y"], y) and arrays["t"].shape == (0,)
     with pytest.raises(Exception):
         blob.decode(b"not zlib")
+
+
+def test_a_redis_that_evicts_keys_is_reported(store):
+    # An eviction policy silently drops queued jobs (common practice: noeviction for queues).
+    before = store.r.config_get("maxmemory-policy")["maxmemory-policy"]
+    try:
+        store.r.config_set("maxmemory-policy", "allkeys-lru")
+        assert any("noeviction" in p for p in store.durability_problems())
+    finally:
+        store.r.config_set("maxmemory-policy", before)
+    assert store.durability_problems() == []
