@@ -114,7 +114,7 @@ class JobSpecSchema(Schema):
     nonnegative = fields.Boolean(load_default=False,
                                  metadata={"description": "keep every state >= 0 (concentrations)"})
 
-    @validates_schema
+    @validates_schema(skip_on_field_errors=False)
     def _consistent(self, data, **kwargs):
         errors: dict = {}
         span = data.get("span")
