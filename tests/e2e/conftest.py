@@ -27,8 +27,8 @@ class Stack:
         self.logs.mkdir(parents=True, exist_ok=True)
         self.api = self._spawn("api", api_command("127.0.0.1", self.port, workers=1))
         self.worker = None
-        self.start_worker()
         self._wait_api()
+        self.start_worker()
 
     def _spawn(self, name: str, cmd: list[str]) -> subprocess.Popen:
         log = open(self.logs / f"{name}-{self.port}.log", "ab")
@@ -39,9 +39,9 @@ class Stack:
         deadline = time.time() + 30
         while time.time() < deadline:
             try:
-                if requests.get(self.base + "/v1/health", timeout=1).ok:
+                if requests.get(self.base + "/v1/health", timeout=5).status_code == 200:
                     return
-            except requests.ConnectionError:
+            except requests.RequestException:
                 time.sleep(0.2)
         raise RuntimeError("API did not start; see var/test-logs")
 

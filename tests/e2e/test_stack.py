@@ -4,6 +4,7 @@ import time
 
 import numpy as np
 import pytest
+import redis
 import requests
 from scipy.linalg import expm
 
@@ -21,7 +22,7 @@ NAMES = ["x", "y", "z"]
 def linear_spec(rtol=1e-8, atol=1e-12, times=None, method="auto"):
     ddt = {}
     for i, name in enumerate(NAMES):
-        terms = [f"({A[i, j]!r})*{NAMES[j]}" for j in range(3)]
+        terms = [f"({float(A[i, j])!r})*{NAMES[j]}" for j in range(3)]
         ddt[name] = " + ".join(terms)
     return {
         "label": "linear 3x3 (e2e)",
@@ -101,3 +102,6 @@ def test_kill_9_of_the_worker_mid_job_then_restart_finishes_the_job_once(stack):
     assert view["attempt"] == 2
     r = requests.get(f"{stack.base}/v1/jobs/{job_id}/result?format=json", timeout=10)
     assert r.ok
+    # exactly one terminal write (the fenced finish counts its writes)
+    db = redis.Redis.from_url(stack.env["REDIS_URL"])
+    assert int(db.hget(f"{stack.env['STIFFLANE_KEY_PREFIX']}:job:{job_id}", "writes")) == 1
