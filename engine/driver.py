@@ -15,7 +15,7 @@ from engine.errors_norm import initial_step
 from engine.events import dense_eval, scan
 from engine.state import (DONE, FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
                           F_ERR_OLD, F_EXPL_NEEDED, F_H, F_H_LAST, F_H_LU, F_H_OLD,
-                          F_HEXP, F_HMAX, F_NEWTON_TOL, F_RHO, F_RTOL, F_T, F_T_BAD,
+                          F_HEXP, F_HMAX, F_NEWTON_TOL, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_BAD,
                           F_T_OLD, F_TEND, I_ACCEPTED, I_CONT_METHOD, I_FAIL_KIND,
                           I_FIRST, I_HAS_TIME, I_HAVE_CONT, I_HIST_N, I_HIST_STRIDE,
                           I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
@@ -31,6 +31,7 @@ from engine.switching import (P_BOUNDARY, P_POWER_ITERS, REASON_EXPLICIT_CHEAPER
 from engine.tableaux import DOPRI5, RADAU5, RODAS
 
 EPS = 2.220446049250313e-16
+JAC_CHECK_EVERY = 20  # auto mode: accepted explicit steps between Jacobian checks
 
 
 @njit(cache=True, nogil=True)
@@ -107,6 +108,7 @@ def _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
         _reject(fs, iw, h, fac, FAIL_ERROR)
         return False
     fs[F_ERR_OLD] = max(err, 1e-4)
+    rho = max(rho, fs[F_RHO_J])
     fs[F_RHO] = rho
     fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
     dopri5.prepare_dense(y, ynew, h, K, cont)
@@ -320,6 +322,7 @@ def _switch(fs, iw, swlog, to, reason):
     iw[I_FIRST] = 1
     iw[I_LU_VALID] = 0
     iw[I_JAC_CURRENT] = -1
+    fs[F_RHO_J] = 0.0
     fs[F_ERR_OLD] = 1e-4 if to == DOPRI5 else 0.0
     fs[F_H_OLD] = 0.0
     iw[I_RETURN] = 1
@@ -347,6 +350,14 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
     if iw[I_PINNED] >= 0:
         return
     counters = iw[I_STIFF_POS:I_STIFF_POS + 2]
+    if method == DOPRI5 and jv.shape[0] > 0 and J.shape[0] == y.shape[0] \
+            and iw[I_STEPS_IN_METHOD] % JAC_CHECK_EVERY == 1:
+        # The stage estimate of rho sees a fast mode only once it has grown
+        # back; a periodic Jacobian-based estimate finds it at once.
+        vm.jac_dense(kernel, t, y, p, regs, jv, J)
+        iw[I_NJEV] += 1
+        fs[F_RHO_J] = switching.spectral_radius(J, V[V_PV], V[V_PW],
+                                                int(pol[P_POWER_ITERS]))
     if method == DOPRI5:
         if switching.explicit_says_stiff(pol, counters, fs[F_H_LAST], fs[F_RHO],
                                          iw[I_STEPS_IN_METHOD]):
@@ -357,6 +368,7 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
                                             iw[I_STEPS_IN_METHOD]):
             _switch(fs, iw, swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
             fs[F_H] = min(fs[F_H], 0.5 * fs[F_HEXP])
+            V[V_K, :] = f0  # first-same-as-last stage of the explicit method
 
 
 @njit(cache=True, nogil=True)
