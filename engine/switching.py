@@ -106,18 +106,23 @@ def implicit_choice(pol, rtol):
 @njit(cache=True, nogil=True)
 def spectral_radius(J, v, w, iters):
     """Power-iteration estimate of the spectral radius of J, warm-started
-    from ``v`` (updated in place). Returns the largest ratio seen."""
+    from ``v`` (updated in place): (||J^k v|| / ||v||)^(1/k), which, unlike a
+    single ratio, is not inflated by non-normal transients."""
     n = J.shape[0]
     nv = 0.0
     for i in range(n):
         nv += v[i] * v[i]
-    if not (nv > 0.0):
+    if not (nv > 0.0) or not np.isfinite(nv):
         for i in range(n):
             v[i] = 1.0 + 0.1 * i / max(n, 1)
         nv = 0.0
         for i in range(n):
             nv += v[i] * v[i]
-    rho = 0.0
+    s = 1.0 / np.sqrt(nv)
+    for i in range(n):
+        v[i] *= s
+    logsum = 0.0
+    k = 0
     for _ in range(iters):
         nw = 0.0
         for i in range(n):
@@ -128,11 +133,9 @@ def spectral_radius(J, v, w, iters):
             nw += acc * acc
         if not (nw > 0.0) or not np.isfinite(nw):
             break
-        ratio = np.sqrt(nw / nv)
-        if ratio > rho:
-            rho = ratio
-        s = 1.0 / np.sqrt(nw)
+        nw = np.sqrt(nw)
+        logsum += np.log(nw)
+        k += 1
         for i in range(n):
-            v[i] = w[i] * s
-        nv = 1.0
-    return rho
+            v[i] = w[i] / nw
+    return np.exp(logsum / k) if k > 0 else 0.0

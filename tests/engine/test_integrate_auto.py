@@ -1,0 +1,112 @@
+"""Automatic switching: implicit phases where stiff, none where not; the
+stability-limited explicit step in the report; the policy's parameters."""
+import numpy as np
+import pytest
+
+from engine.integrate import SUCCEEDED, SolverOptions, integrate
+from engine.switching import SwitchPolicy
+from tests.engine import kernels as K
+
+
+def run(spec, t_end, **kw):
+    m = K.model(spec)
+    return integrate(m.kernel, m.p, m.y0, (0.0, t_end), np.array([t_end]),
+                     SolverOptions(method="auto", **kw))
+
+
+@pytest.mark.parametrize("spec,t_end", [(K.ROBERTSON, 1e11), (K.HIRES, K.HIRES_END),
+                                        (K.VAN_DER_POL, 3000.0)])
+@pytest.mark.parametrize("rtol", [1e-4, 1e-6, 1e-9])
+def test_stiff_problems_get_implicit_phases(spec, t_end, rtol):
+    sol = run(spec, t_end, rtol=rtol, atol=rtol * 1e-4)
+    r = sol.report
+    assert sol.outcome == SUCCEEDED
+    implicit = r["steps_per_method"]["radau5"] + r["steps_per_method"]["rodas"]
+    assert implicit > 0
+    assert r["switches"][0]["reason"] == "stiffness_detected"
+    assert r["switches"][0]["from"] == "dopri5"
+    # Radau5 at tight tolerances, Rodas at loose ones (policy default 1e-7).
+    assert r["switches"][0]["to"] == ("radau5" if rtol < 1e-7 else "rodas")
+    # Work ceilings: a broken stiff path would take explicit-sized steps.
+    assert r["accepted_steps"] < 4000
+    assert r["explicit_steps_needed"] > 10 * r["accepted_steps"] or spec is K.HIRES
+
+
+@pytest.mark.parametrize("spec,t_end", [(K.ARENSTORF, K.ARENSTORF_PERIOD), (K.LORENZ, 20.0)])
+@pytest.mark.parametrize("rtol", [1e-3, 1e-6, 1e-9])
+def test_nonstiff_problems_stay_explicit(spec, t_end, rtol):
+    sol = run(spec, t_end, rtol=rtol, atol=rtol * 1e-3)
+    r = sol.report
+    assert sol.outcome == SUCCEEDED
+    assert r["switch_count"] == 0 and r["methods_used"] == ["dopri5"]
+    assert r["lu_factorizations"] == 0
+
+
+def dopri5_stability_polynomial(z):
+    # Stability function of the 5th-order DOPRI5 solution (Hairer, Norsett &
+    # Wanner I, sec. IV.2 / Hairer & Wanner II, sec. IV.2; from memory):
+    # the degree-5 Taylor polynomial plus z^6/600.
+    return 1 + z + z**2 / 2 + z**3 / 6 + z**4 / 24 + z**5 / 120 + z**6 / 600
+
+
+def real_axis_boundary():
+    """Largest x with |R(-s)| <= 1 on [0, x], by bisection on a fine scan."""
+    s = np.linspace(0.0, 5.0, 50001)
+    bad = np.nonzero(np.abs(dopri5_stability_polynomial(-s)) > 1 + 1e-12)[0]
+    lo, hi = s[bad[0] - 1], s[bad[0]]
+    for _ in range(60):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if abs(dopri5_stability_polynomial(-mid)) <= 1 else (lo, mid)
+    return lo
+
+
+def test_engine_tableau_has_the_published_stability_polynomial():
+    from engine.tableaux import DP_A
+    A, b = DP_A[:6, :6], DP_A[6, :6]
+    for z in (-0.5, -1.7, -3.0, 0.3):
+        r = 1 + z * b @ np.linalg.solve(np.eye(6) - z * A, np.ones(6))
+        assert r == pytest.approx(dopri5_stability_polynomial(z), rel=1e-12)
+
+
+def test_report_explicit_step_matches_stability_boundary():
+    boundary = real_axis_boundary()
+    assert 3.2 < boundary < 3.4
+    lams = [-1.0, -50.0, -3000.0]  # invented, real and negative
+    A = K.matrix_with_eigenvalues(lams)
+    kern = K.linear_kernel(A)
+    sol = integrate(kern, np.zeros(0), np.ones(3), (0.0, 5.0), np.linspace(0, 5, 11),
+                    SolverOptions(method="auto", rtol=1e-6, atol=1e-10))
+    r = sol.report
+    expected = boundary / 3000.0
+    for s in r["stiffness_samples"]:
+        assert s["explicit_step"] == pytest.approx(expected, rel=0.01)
+        assert s["stiffness_ratio"] == pytest.approx(3000.0, rel=1e-6)
+        assert s["dominant_eigenvalues"][0][0] == pytest.approx(-3000.0, rel=1e-9)
+    # In-run estimates (power iteration while implicit) agree within 5 %.
+    hist = r["step_history"]
+    implicit = [e for e, m in zip(hist["explicit_step"], hist["method"]) if m != "dopri5"]
+    assert implicit and np.allclose(implicit, expected, rtol=0.05)
+    # A stability-bound explicit solver needs about 5 / h_stab steps.
+    assert r["explicit_steps_needed"] == pytest.approx(5.0 / expected, rel=0.1)
+    assert r["accepted_steps"] < 0.2 * r["explicit_steps_needed"]
+
+
+def test_policy_is_parameterised():
+    never = SwitchPolicy(stiff_tests=10**9)
+    sol = run(K.ROBERTSON, 1.0, rtol=1e-6, atol=1e-10, policy=never)
+    assert sol.report["switch_count"] == 0
+    radau_always = SwitchPolicy(radau_below_rtol=1.0)
+    sol = run(K.ROBERTSON, 1e3, rtol=1e-6, atol=1e-10, policy=radau_always)
+    assert sol.report["switches"][0]["to"] == "radau5"
+
+
+def test_switch_log_rows_carry_the_numbers():
+    sol = run(K.VAN_DER_POL, 3000.0, rtol=1e-6, atol=1e-9)
+    r = sol.report
+    assert r["switch_count"] >= 2  # relaxation oscillation: stiff and non-stiff phases
+    for row in r["switches"]:
+        assert set(row) == {"t", "from", "to", "h", "rho", "explicit_step", "reason"}
+        assert row["rho"] > 0 and row["h"] > 0
+    back = [w for w in r["switches"] if w["to"] == "dopri5"]
+    assert back and all(w["reason"] == "explicit_step_competitive" for w in back)
+    assert all(w["explicit_step"] >= w["h"] for w in back)
