@@ -175,15 +175,75 @@ def _frozen(a) -> np.ndarray:
     return a
 
 
+def _mass_action_arrays(spec, S: np.ndarray, pool: ConstPool):
+    """Parts of the packed ``Kernel.ma`` array (see engine.vm.mass_action), the
+    stoichiometric values to append to the constants, and the rate constants to pin."""
+    index = {name: i for i, name in enumerate(spec.state_names)}
+    pinned: list[tuple[int, Node]] = []
+    slots: dict[int, int] = {}
+
+    def source(node):
+        if node is None:
+            return vm.K_NONE, 0
+        if node.op == "p":
+            return vm.K_PARAM, node.value
+        if node.op == "const":
+            return vm.K_CONST, pool(node.value)
+        if id(node) not in slots:
+            slots[id(node)] = len(pinned)
+            pinned.append((len(pinned), node))
+        return vm.K_REG, slots[id(node)]
+
+    m = len(spec.structure)
+    K = np.zeros((m, 4), dtype=np.int64)
+    lists = {"react": [], "prod": [], "stoich": []}
+    ptrs = {key: [0] for key in lists}
+    values: list[float] = []
+    live = ~np.array(spec.fixed, dtype=bool)
+    for j, (kf, react, kr, prod) in enumerate(spec.structure):
+        K[j] = (*source(kf), *source(kr))
+        for key, side in (("react", react), ("prod", prod)):
+            lists[key].extend(index[name] for name, c in side for _ in range(int(c)))
+            ptrs[key].append(len(lists[key]))
+        rows = np.flatnonzero((S[:, j] != 0) & live)
+        lists["stoich"].extend(rows.tolist())
+        values.extend(S[rows, j].tolist())
+        ptrs["stoich"].append(len(lists["stoich"]))
+    return K, lists, ptrs, np.array(values, dtype=float), pinned
+
+
+def _pack_mass_action(K, lists, ptrs, v0: int, reg_base: int) -> np.ndarray:
+    m = K.shape[0]
+    K = K.copy()
+    for col in (0, 2):
+        K[K[:, col] == vm.K_REG, col + 1] += reg_base
+    start = 2 + 7 * m + 3  # header, K, three pointer arrays
+    ma = [m, v0, *K.ravel().tolist()]
+    offset = start
+    for key in ("react", "prod", "stoich"):
+        ma.extend(offset + q for q in ptrs[key])
+        offset += len(lists[key])
+    for key in ("react", "prod", "stoich"):
+        ma.extend(lists[key])
+    return np.array(ma, dtype=np.int64)
+
+
 def _compile(spec, limits: Limits, digest: str, started: float) -> PreparedModel:
     b: Builder = spec.builder
     b.strict = False
     n = len(spec.state_names)
-    rhs = list(spec.rhs)
-    entries = jacobian(b, rhs, "y")
+    S, exact = stoichiometry(spec.equations, {s: i for i, s in enumerate(spec.state_names)}, n)
+    entries = jacobian(b, spec.rhs, "y")
     pool = ConstPool()
+    ma, stoich_values = np.zeros(2, dtype=np.int64), np.zeros(0)
+    if spec.structure:  # reactions run structurally; the program adds the ddt terms
+        K, lists, ptrs, stoich_values, pinned = _mass_action_arrays(spec, S, pool)
+        rhs_code, rhs_regs = compile_program(sorted(spec.ddt_terms.items()), pool, pinned)
+        ma = (K, lists, ptrs, rhs_regs - len(pinned))
+    else:
+        rhs_code, rhs_regs = compile_program(list(enumerate(spec.rhs)), pool)
     programs = [
-        compile_program(list(enumerate(rhs)), pool),
+        (rhs_code, rhs_regs),
         compile_program([(k, e[2]) for k, e in enumerate(entries)], pool),
         compile_program(list(enumerate(spec.aux)), pool),
         compile_program(list(enumerate(spec.events)), pool),
@@ -192,15 +252,18 @@ def _compile(spec, limits: Limits, digest: str, started: float) -> PreparedModel
     if total > limits.max_instructions:
         raise ModelError([ModelIssue((), f"the compiled model needs {total} instructions; "
                                          f"the limit is {limits.max_instructions}")])
+    consts = pool.array()
+    if spec.structure:
+        ma = _pack_mass_action(*ma[:3], v0=len(consts), reg_base=ma[3])
+        consts = np.concatenate([consts, stoich_values])
     kernel = vm.Kernel(
-        n=n, n_regs=max(r for _, r in programs), consts=_frozen(pool.array()),
+        n=n, n_regs=max(r for _, r in programs), consts=_frozen(consts),
         rhs_code=_frozen(programs[0][0]), jac_code=_frozen(programs[1][0]),
         jac_rows=_frozen(np.array([e[0] for e in entries], dtype=np.int64)),
         jac_cols=_frozen(np.array([e[1] for e in entries], dtype=np.int64)),
         aux_code=_frozen(programs[2][0]), n_aux=len(spec.aux),
-        event_code=_frozen(programs[3][0]), n_events=len(spec.events),
+        event_code=_frozen(programs[3][0]), n_events=len(spec.events), ma=_frozen(ma),
     )
-    S, exact = stoichiometry(spec.equations, {s: i for i, s in enumerate(spec.state_names)}, n)
     laws = conservation_laws(S, exact, spec.law_states)
     return PreparedModel(
         kernel=kernel, state_names=tuple(spec.state_names), y0=_frozen(spec.y0),
@@ -251,12 +314,14 @@ class _Spec:
     ddt: dict = field(default_factory=dict)
     equations: list = field(default_factory=list)
     rates: list = field(default_factory=list)
+    structure: list = field(default_factory=list)  # (k_f, reactants, k_r | None, products)
     reaction_names: list = field(default_factory=list)
     event_names: list = field(default_factory=list)
     events: list = field(default_factory=list)
     event_directions: list = field(default_factory=list)
     event_terminal: list = field(default_factory=list)
     rhs: list = field(default_factory=list)
+    ddt_terms: dict = field(default_factory=dict)  # state index -> own ddt node (non-zero)
     law_states: list = field(default_factory=list)
 
 
@@ -468,6 +533,9 @@ def _assemble(spec: _Spec):
         for term in terms[i]:
             acc = b.add(acc, term)
         spec.rhs.append(acc if not spec.fixed[i] else b.zero)
+        own = spec.ddt.get(i, b.zero)
+        if own is not b.zero and not spec.fixed[i]:
+            spec.ddt_terms[i] = own
     spec.law_states = sorted(i for i in in_reaction
                              if not spec.fixed[i] and spec.ddt.get(i, b.zero) is b.zero)
 

@@ -40,23 +40,26 @@ class ConstPool:
         return out
 
 
-def _uses(nodes: list[Node], outputs) -> dict[int, int]:
+def _uses(nodes: list[Node], outputs, pinned=()) -> dict[int, int]:
     uses: dict[int, int] = {}
     for n in nodes:
         for c in n.args:
             uses[id(c)] = uses.get(id(c), 0) + 1
-    for _, n in outputs:
+    for _, n in (*outputs, *pinned):
         uses[id(n)] = uses.get(id(n), 0) + 1
     return uses
 
 
-def _schedule(outputs) -> list[tuple[int, int, Node, tuple]]:
-    """Instructions as (opcode, extra, result node, operand nodes); OUT has result None."""
-    nodes = postorder([n for _, n in outputs])
-    uses = _uses(nodes, outputs)
-    by_node: dict[int, list[int]] = {}
+def _schedule(outputs, pinned=()) -> list[tuple[int, int, Node, tuple]]:
+    """Instructions as (opcode, extra, result node, operand nodes); OUT and MOVE
+    (pinned values) have result None."""
+    nodes = postorder([n for _, n in (*outputs, *pinned)])
+    uses = _uses(nodes, outputs, pinned)
+    by_node: dict[int, list[tuple[int, int]]] = {}
     for k, n in outputs:
-        by_node.setdefault(id(n), []).append(k)
+        by_node.setdefault(id(n), []).append((vm.OUT, k))
+    for k, n in pinned:
+        by_node.setdefault(id(n), []).append((vm.MOVE, k))
     fused: set[int] = set()
     for n in nodes:  # a product read only by one sum is folded into that sum
         if n.op == "add":
@@ -85,14 +88,20 @@ def _schedule(outputs) -> list[tuple[int, int, Node, tuple]]:
             sched.append((vm.MULADD, 0, n, (m.args[0], m.args[1], other)))
         else:
             sched.append((_OPCODES[op], 0, n, n.args))
-        for k in by_node.get(id(n), ()):
-            sched.append((vm.OUT, k, None, (n,)))
+        for opc, k in by_node.get(id(n), ()):
+            sched.append((opc, k, None, (n,)))
     return sched
 
 
-def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool) -> tuple[np.ndarray, int]:
-    """Register program computing each ``out[k] = node``; returns (code, registers used)."""
-    sched = _schedule(outputs)
+def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool,
+                    pinned: list[tuple[int, Node]] = ()) -> tuple[np.ndarray, int]:
+    """Register program computing each ``out[k] = node``; returns (code, registers used).
+
+    Each ``(slot, node)`` in ``pinned`` leaves its value in register ``base + slot`` at
+    the end, where ``base`` is the number of working registers; the registers used
+    then include the pinned ones (``base + len(pinned)``).
+    """
+    sched = _schedule(outputs, pinned)
     last: dict[int, int] = {}
     for i, (_, _, _, operands) in enumerate(sched):
         for m in operands:
@@ -106,8 +115,8 @@ def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool) -> tuple[n
         for m in {id(m): m for m in operands}.values():
             if last[id(m)] == i:
                 free.append(reg.pop(id(m)))
-        if opc == vm.OUT:
-            rows.append((vm.OUT, extra, srcs[0], 0, 0))
+        if opc in (vm.OUT, vm.MOVE):
+            rows.append((opc, extra, srcs[0], 0, 0))
             continue
         if id(node) not in last:  # computed but never read (cannot happen for outputs)
             continue
@@ -126,4 +135,8 @@ def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool) -> tuple[n
             row = (opc, d, *srcs, *([0] * (3 - len(srcs))))
         rows.append(row)
     code = np.array(rows, dtype=np.int32).reshape(len(rows), vm.N_FIELDS)
+    if len(pinned):
+        moves = code[:, 0] == vm.MOVE
+        code[moves, 1] += n_regs
+        return code, n_regs + len(pinned)
     return code, max(n_regs, 1)

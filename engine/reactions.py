@@ -127,69 +127,88 @@ def stoichiometry(equations: list[Equation], state_index: dict[str, int], n: int
     return S, exact
 
 
-def _rref(M: np.ndarray) -> np.ndarray:
-    M = M.copy()
-    r = 0
-    for c in range(M.shape[1]):
-        if r == M.shape[0]:
+def _left_null_space(sub: np.ndarray) -> np.ndarray:
+    """Orthonormal rows spanning {c : c^T sub = 0}: SVD for small matrices; for large
+    ones the eigenvectors of the small eigenvalues of sub sub^T (much cheaper than a
+    full SVD; the exact check afterwards guards against rounding)."""
+    if sub.shape[0] * sub.shape[1] <= 250_000:
+        U, s, _ = np.linalg.svd(sub, full_matrices=True)
+        tol = max(sub.shape) * np.finfo(float).eps * (s[0] if len(s) else 1.0)
+        return U[:, int(np.sum(s > tol)):].T
+    from scipy import sparse
+    from scipy.linalg import eigh
+    sp = sparse.csr_matrix(sub)
+    G = (sp @ sp.T).toarray()
+    scale = max(float(np.abs(G).max()), 1.0)
+    w, V = eigh(G, subset_by_value=(-np.inf, 1e-9 * scale), driver="evr")
+    if len(w):
+        V = V[:, np.linalg.norm(sp.T @ V, axis=0) <= 1e-6 * np.sqrt(scale)]
+    return V.T
+
+
+def _echelon(null: np.ndarray) -> np.ndarray:
+    """Rows spanning the same space, equal to the identity on k pivot columns chosen
+    by QR with column pivoting (a reduced row echelon form up to row order)."""
+    from scipy.linalg import qr
+    k = null.shape[0]
+    _, piv = qr(null, mode="r", pivoting=True)
+    cols = np.sort(piv[:k])
+    B = np.linalg.solve(null[:, cols], null)
+    B[np.abs(B) < 1e-10] = 0.0
+    return B[np.argsort([np.flatnonzero(row)[0] for row in B])]
+
+
+def _integer_rows(B: np.ndarray, max_denominator: int = 60):
+    """(rows scaled to coprime integers, mask of rows where that was possible)."""
+    ints = np.zeros(B.shape, dtype=np.int64)
+    done = np.zeros(B.shape[0], dtype=bool)
+    for d in range(1, max_denominator + 1):
+        todo = np.flatnonzero(~done)
+        if not len(todo):
             break
-        p = r + int(np.argmax(np.abs(M[r:, c])))
-        if abs(M[p, c]) < 1e-9:
-            continue
-        M[[r, p]] = M[[p, r]]
-        M[r] /= M[r, c]
-        others = np.arange(M.shape[0]) != r
-        M[others] -= np.outer(M[others, c], M[r])
-        r += 1
-    return M[:r]
+        scaled = B[todo] * d
+        rounded = np.round(scaled)
+        good = np.max(np.abs(scaled - rounded), axis=1) < 1e-7
+        ints[todo[good]] = rounded[good].astype(np.int64)
+        done[todo[good]] = True
+    g = np.gcd.reduce(np.abs(ints), axis=1)
+    g[g == 0] = 1
+    return ints // g[:, None], done
 
 
-def _integer_row(row: np.ndarray) -> list[int] | None:
-    fracs = [Fraction(float(x)).limit_denominator(1000) for x in row]
-    if any(abs(float(f) - x) > 1e-9 for f, x in zip(fracs, row)):
-        return None
-    lcm = 1
-    for f in fracs:
-        lcm = lcm * f.denominator // math.gcd(lcm, f.denominator)
-    ints = [int(f * lcm) for f in fracs]
-    g = 0
-    for v in ints:
-        g = math.gcd(g, v)
-    return [v // g for v in ints] if g else None
+def _exact_integer_matrix(exact: dict, shape) -> "object":
+    from scipy import sparse
+    den = 1
+    for v in exact.values():
+        den = den * v.denominator // math.gcd(den, v.denominator)
+    rows = [i for i, _ in exact]
+    cols = [j for _, j in exact]
+    vals = [int(v * den) for v in exact.values()]
+    return sparse.csc_matrix((np.array(vals, dtype=np.int64), (rows, cols)), shape=shape)
 
 
 def conservation_laws(S: np.ndarray, exact: dict, eligible: list[int]) -> np.ndarray:
     """Rows c (over all states, zero outside ``eligible``) with c^T S = 0.
 
-    Found from the SVD of S restricted to ``eligible`` rows, reduced to row
-    echelon form, rounded to small integers and checked exactly; a row that
-    does not check exactly is kept as floats (largest entry 1).
+    Found from the null space of S restricted to ``eligible`` rows, brought to
+    echelon form, scaled to small coprime integers and checked exactly in integer
+    arithmetic; a row that does not check exactly is kept as floats (largest entry 1).
     """
     n = S.shape[0]
     if not eligible or S.shape[1] == 0:
         return np.zeros((0, n))
-    sub = S[eligible]
-    U, s, _ = np.linalg.svd(sub, full_matrices=True)
-    tol = max(sub.shape) * np.finfo(float).eps * (s[0] if len(s) else 1.0)
-    rank = int(np.sum(s > tol))
-    if rank == len(eligible):
+    null = _left_null_space(S[eligible])
+    if null.shape[0] == 0:
         return np.zeros((0, n))
-    basis = _rref(U[:, rank:].T)
-    cols: dict[int, list[tuple[int, Fraction]]] = {}
-    for (i, j), v in exact.items():
-        cols.setdefault(j, []).append((i, v))
-    laws = []
-    for row in basis:
-        full = np.zeros(n)
-        full[eligible] = row
-        ints = _integer_row(full)
-        if ints is not None and all(sum(ints[i] * v for i, v in col) == 0 for col in cols.values()):
-            if sum(ints) < 0 or (sum(ints) == 0 and ints[int(np.flatnonzero(ints)[0])] < 0):
-                ints = [-v for v in ints]
-            laws.append(np.array(ints, dtype=float))
-        else:
-            laws.append(full / np.max(np.abs(full)))
-    return np.array(laws)
+    B = np.zeros((null.shape[0], n))
+    B[:, eligible] = _echelon(null)
+    ints, ok = _integer_rows(B)
+    residual = ints @ _exact_integer_matrix(exact, S.shape)
+    ok &= np.asarray(np.abs(residual).sum(axis=1)).ravel() == 0
+    flip = ints.sum(axis=1) < 0
+    ints[flip] *= -1
+    laws = np.where(ok[:, None], ints.astype(float), B / np.abs(B).max(axis=1, keepdims=True))
+    return laws
 
 
 def law_label(row: np.ndarray, names) -> str:
@@ -263,6 +282,7 @@ def _one_reaction(r, j, item):
         if "k_reverse" in item:
             r.issue((*path, "k_reverse"), "not used with 'rate': the custom rate is the net rate")
         rate = r.expr(item["rate"], (*path, "rate"))
+        structure = (rate, (), None, ())
     else:
         k = r.expr(item["k"], (*path, "k")) if how == "k" else \
             _arrhenius_k(r, item["arrhenius"], (*path, "arrhenius"))
@@ -277,13 +297,17 @@ def _one_reaction(r, j, item):
         if eq is None or k is None or (eq.reversible and kr is None):
             return
         nodes = spec.scope
-        rate = mass_action(b, k, eq.reactants, nodes)
-        if eq.reversible:
-            rate = b.sub(rate, mass_action(b, kr, eq.products, nodes))
+        forward = mass_action(b, k, eq.reactants, nodes)
+        backward = mass_action(b, kr, eq.products, nodes) if eq.reversible else None
+        rate = b.sub(forward, backward) if eq.reversible else forward
+        integral = all(c.denominator == 1 for _, c in (*eq.reactants, *eq.products))
+        structure = (k, eq.reactants, kr, eq.products) if integral else \
+            (forward, (), backward, ())
     if eq is None or rate is None:
         return
     spec.equations.append(eq)
     spec.rates.append(rate)
+    spec.structure.append(structure)
     spec.reaction_names.append(str(name))
 
 

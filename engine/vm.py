@@ -38,6 +38,7 @@ LT, LE, GT, GE, EQ, NE = 27, 28, 29, 30, 31, 32
 AND, OR, NOT, SELECT = 33, 34, 35, 36
 MULADD = 37  # dst = a * b + c (fused form used by mass-action rates)
 SIGN = 38
+MOVE = 39    # dst = a (pins a value in a register read after the program)
 
 N_FIELDS = 5
 
@@ -46,6 +47,10 @@ OPCODE_NAMES = {
     for name, value in dict(globals()).items()
     if name.isupper() and isinstance(value, int) and name not in ("N_FIELDS",)
 }
+
+
+# Sources of a mass-action rate constant (Kernel.ma_k columns 0/2).
+K_NONE, K_REG, K_PARAM, K_CONST = 0, 1, 2, 3
 
 
 class Kernel(NamedTuple):
@@ -67,6 +72,9 @@ class Kernel(NamedTuple):
     n_aux: int
     event_code: np.ndarray  # int32 (k, 5): writes event function values
     n_events: int
+    # Structural mass-action part of the right-hand side, packed into one int64 array
+    # (see mass_action); [0, 0] when the model has no reactions.
+    ma: np.ndarray = np.zeros(2, dtype=np.int64)
 
 
 # error_model="numpy": x/0 gives inf/nan like numpy instead of raising ZeroDivisionError.
@@ -159,6 +167,44 @@ def run(code, consts, t, y, p, regs, out):
             regs[d] = 1.0 if regs[a] == 0.0 else 0.0
         elif op == SELECT:
             regs[d] = regs[code[k, 3]] if regs[a] != 0.0 else regs[code[k, 4]]
+        elif op == MOVE:
+            regs[d] = regs[a]
+
+
+@njit(cache=True, nogil=True, inline="always")
+def mass_action(ma, consts, y, p, regs, out):
+    """Add the mass-action terms S r to ``out`` (rate constants already in place).
+
+    ``ma`` layout (m reactions): ``[m, v0, K (4m), rp (m+1), pp (m+1), sp (m+1), ...]``.
+    ``K[j] = (kind_f, index_f, kind_r, index_r)``; reaction j's rate is
+    ``K_f * prod y[ma[rp[j]:rp[j+1]]] - K_r * prod y[ma[pp[j]:pp[j+1]]]`` (species
+    repeated by order) and it adds ``consts[v0 + q - sp[0]] * rate`` to ``out[ma[q]]``
+    for q in ``sp[j]:sp[j+1]``. One array keeps the kernel tuple small (each array
+    passed between compiled functions costs reference counting).
+    """
+    m = ma[0]
+    v0 = ma[1]
+    kb = 2
+    rp = kb + 4 * m
+    pp = rp + m + 1
+    sp = pp + m + 1
+    s0 = ma[sp]
+    for j in range(m):
+        c = kb + 4 * j
+        # rate constants read in line: a helper function taking the arrays would cost
+        # reference counting on every call inside this loop
+        kind, i = ma[c], ma[c + 1]
+        r = p[i] if kind == K_PARAM else (regs[i] if kind == K_REG else consts[i])
+        for q in range(ma[rp + j], ma[rp + j + 1]):
+            r *= y[ma[q]]
+        kind, i = ma[c + 2], ma[c + 3]
+        if kind != K_NONE:
+            rr = p[i] if kind == K_PARAM else (regs[i] if kind == K_REG else consts[i])
+            for q in range(ma[pp + j], ma[pp + j + 1]):
+                rr *= y[ma[q]]
+            r -= rr
+        for q in range(ma[sp + j], ma[sp + j + 1]):
+            out[ma[q]] += consts[v0 + q - s0] * r
 
 
 @njit(cache=True, inline="always")
@@ -195,8 +241,13 @@ def _pow(x, e):
 
 @njit(cache=True, nogil=True)
 def rhs(kernel, t, y, p, regs, out):
-    """dy/dt into ``out`` (length n)."""
+    """dy/dt into ``out`` (length n): the program's terms, then the mass-action terms."""
+    ma = kernel.ma
+    if ma[0] > 0:
+        out[:] = 0.0  # the program then writes only the states with their own ddt terms
     run(kernel.rhs_code, kernel.consts, t, y, p, regs, out)
+    if ma[0] > 0:
+        mass_action(ma, kernel.consts, y, p, regs, out)
 
 
 @njit(cache=True, nogil=True)

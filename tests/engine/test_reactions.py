@@ -148,3 +148,41 @@ def test_conservation_rows_are_left_null_vectors():
     assert prepared.conservation.shape == (2, 5)
     assert np.all(prepared.conservation @ prepared.stoichiometry == 0)
     assert np.all(prepared.conservation == np.round(prepared.conservation))
+
+
+def test_structural_rates_agree_with_the_symbolic_jacobian_on_a_mixed_network():
+    """The right-hand side runs reactions structurally; the Jacobian comes from the trees.
+    Central differences of the one must match the other (invented network)."""
+    model = {"states": {"A": 0.7, "B": 0.4, "C": 0.3, "D": 0.2, "T": 400.0, "W": {"initial": 2.0, "fixed": True}},
+             "parameters": {"k1": 0.3, "Ea": 20.0},
+             "derived": {"kd": "k1 * exp(-1000/T)"},
+             "ddt": {"T": "-0.01*(T - 390)", "A": "0.05*step(t - 1)"},
+             "reactions": [{"equation": "A + B -> C", "k": "k1"},                # parameter
+                           {"equation": "2 C <=> D", "k": 1.5, "k_reverse": 0.25},  # constants
+                           {"equation": "B + W -> A", "k": "kd"},                # derived expression
+                           {"equation": "D -> ", "arrhenius": {"A": 50.0, "Ea": "Ea", "Ea_unit": "kJ/mol", "T": "T"}},
+                           {"equation": "0.5 A -> B", "k": 0.2},                 # fractional order
+                           {"equation": " -> C", "rate": "0.01*if(t > 2, 1, 0)"}]}
+    with pytest.raises(Exception):
+        prepare(model)  # Ea must be a number
+    model["reactions"][3]["arrhenius"]["Ea"] = 20.0
+    prepared = prepare(model)
+    y = np.array([0.7, 0.4, 0.3, 0.2, 400.0, 2.0])
+    for t in (0.5, 3.0):
+        k = prepared.kernel
+        J = np.zeros((6, 6))
+        vm.jac_dense(k, t, y, prepared.p, np.zeros(k.n_regs), np.zeros(len(k.jac_rows)), J)
+        for j in range(6):
+            h = 1e-6 * max(1.0, y[j])
+            e = np.zeros(6)
+            e[j] = h
+            fd = (rhs(prepared, y + e, t=t) - rhs(prepared, y - e, t=t)) / (2 * h)
+            np.testing.assert_allclose(J[:, j], fd, rtol=1e-6, atol=1e-9)
+    out = rhs(prepared, y, t=3.0)
+    assert out[5] == 0.0
+    r1, r2 = 0.3 * 0.7 * 0.4, 1.5 * 0.3 ** 2 - 0.25 * 0.2
+    r3 = 0.3 * math.exp(-1000 / 400.0) * 0.4 * 2.0
+    r4 = 50.0 * math.exp(-20e3 / (8.314462618 * 400.0)) * 0.2
+    r5, r6 = 0.2 * 0.7 ** 0.5, 0.01
+    np.testing.assert_allclose(out, [0.05 - r1 + r3 - 0.5 * r5, -r1 - r3 + r5, r1 - 2 * r2 + r6,
+                                     r2 - r4, -0.1, 0.0], rtol=1e-13)
