@@ -146,6 +146,13 @@ class JobSpecSchema(Schema):
             raise ValidationError(errors)
 
 
+def describe_model(model: dict) -> dict:
+    """Facts about a valid model (names, counts, stoichiometry, conservation laws)."""
+    from engine.model import prepare
+
+    return prepare(model).summary()
+
+
 def output_times(span: list[float], output: dict) -> np.ndarray:
     """The output times a loaded spec asks for."""
     t0, t1 = span

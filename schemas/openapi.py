@@ -65,6 +65,13 @@ def build_openapi(version: str) -> dict:
         "post": {"summary": "Cancel a job", "operationId": "cancelJob", "parameters": [_JOB_ID],
                  "responses": {"202": _json("JobView", "cancellation recorded"),
                                "404": errors["404"], "409": errors["409"]}}})
+    spec.path(path="/v1/spec-checks", operations={
+        "post": {"summary": "Validate a job spec without submitting it", "operationId": "checkSpec",
+                 "requestBody": {"required": True,
+                                 "content": {"application/json": {"schema": "JobSpec"}}},
+                 "responses": {"200": {"description": "valid; facts about the model",
+                                       "content": {"application/json": {"schema": {"type": "object"}}}},
+                               **{k: errors[k] for k in ("400", "413", "415", "422")}}}})
     spec.path(path="/v1/health", operations={
         "get": {"summary": "Redis, workers and queue depths", "operationId": "health",
                 "responses": {"200": _json("Health", "healthy"), "503": _json("Health", "degraded")}}})

@@ -7,7 +7,7 @@ from flask import Blueprint, Response, current_app, json, request, url_for
 
 from jobs.keys import STATES, is_job_id
 from jobs.store import JobRecord, make_etag
-from schemas.job import JobSpecSchema
+from schemas.job import JobSpecSchema, describe_model
 from schemas.views import CreatedSchema, JobPageSchema, JobViewSchema
 from service import results
 from service.jsonbody import read_json_object
@@ -76,6 +76,14 @@ def _check_output_cap(spec: dict, cap: int) -> None:
     if n > cap:
         raise ApiProblem(422, "Invalid job spec", "too many output points", kind="invalid-spec",
                          errors=[{"pointer": "/output", "detail": f"{n} output points; at most {cap} allowed"}])
+
+
+@bp.post("/spec-checks")
+def check_spec():
+    """Validate a job spec without submitting it (the submit page checks as you type)."""
+    spec = JobSpecSchema().load(read_json_object())
+    _check_output_cap(spec, _ctx().settings.max_output_points)
+    return _json({"valid": True, "model": describe_model(spec["model"])})
 
 
 @bp.get("/jobs")

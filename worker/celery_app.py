@@ -41,6 +41,15 @@ def solve(self, job_id):
     return run_job(store(), job_id)
 
 
+@signals.worker_init.connect
+def _warm_before_fork(**_):
+    """Load the compiled kernels in the main process so every child inherits them."""
+    try:
+        warm()
+    except Exception as e:  # a cold start is slower, not broken
+        log.warning("engine warm-up failed: %s", e)
+
+
 @signals.worker_process_init.connect
 def _fresh_client(**_):
     global _store

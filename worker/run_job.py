@@ -24,7 +24,7 @@ log = logging.getLogger(__name__)
 
 DIGEST_KEYS = ("accepted_steps", "rejected_steps", "rhs_evaluations", "jacobian_evaluations",
                "lu_factorizations", "newton_iterations", "solve_seconds", "prepare_seconds",
-               "methods_used", "switches")
+               "methods_used", "switch_count")
 
 
 class Heartbeat:

@@ -160,3 +160,14 @@ def test_the_openapi_document_describes_every_route(client, app):
               if r.rule.startswith("/v1/") and r.rule != "/v1/openapi.json"}
     assert routes <= set(doc["paths"])
     assert "JobSpec" in doc["components"]["schemas"]
+
+
+def test_a_spec_can_be_checked_without_submitting(client):
+    r = client.post("/v1/spec-checks", json=DECAY)
+    assert r.status_code == 200 and r.get_json()["valid"] is True
+    assert r.get_json()["model"]["states"] == ["a"]
+    bad = json.loads(json.dumps(DECAY))
+    bad["model"]["ddt"]["a"] = "-k*"
+    r = client.post("/v1/spec-checks", json=bad)
+    assert r.status_code == 422 and "/model/ddt/a" in pointers(r)
+    assert client.get("/v1/jobs").get_json()["items"] == []
