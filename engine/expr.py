@@ -38,8 +38,12 @@ class Node:
     __slots__ = ("op", "args", "value", "name", "serial")
 
     def __init__(self, op, args, value, name, serial):
-        for slot, v in zip(self.__slots__, (op, args, value, name, serial)):
-            object.__setattr__(self, slot, v)
+        setattr_ = object.__setattr__
+        setattr_(self, "op", op)
+        setattr_(self, "args", args)
+        setattr_(self, "value", value)
+        setattr_(self, "name", name)
+        setattr_(self, "serial", serial)
 
     def __setattr__(self, key, value):
         raise AttributeError("Node is immutable")

@@ -119,7 +119,13 @@ class PreparedModel:
 
 
 def _is_number(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+    """A finite float64 value (bools and integers beyond the float range are not)."""
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        return False
+    try:
+        return math.isfinite(float(v))
+    except OverflowError:
+        return False
 
 
 def check_model(model, limits: Limits | None = None) -> list[ModelIssue]:
@@ -130,6 +136,39 @@ def check_model(model, limits: Limits | None = None) -> list[ModelIssue]:
     except RecursionError:
         return [ModelIssue((), "model is nested too deeply")]
     return [ModelIssue(*i) for i in issues]
+
+
+def parameter_jacobian(model, limits: Limits | None = None) -> "ParameterJacobian":
+    """d(rhs)/d(parameters) of ``model``, exact, as a compiled program (for sensitivities)."""
+    spec, issues = read_model(model, limits or DEFAULT_LIMITS)
+    if issues:
+        raise ModelError([ModelIssue(*i) for i in issues])
+    spec.builder.strict = False
+    entries = jacobian(spec.builder, spec.rhs, "p")
+    pool = ConstPool()
+    code, n_regs = compile_program([(k, e[2]) for k, e in enumerate(entries)], pool)
+    return ParameterJacobian(np.array([e[0] for e in entries], dtype=np.int64),
+                             np.array([e[1] for e in entries], dtype=np.int64),
+                             code, pool.array(), n_regs, len(spec.state_names), len(spec.param_names))
+
+
+@dataclass(frozen=True, eq=False)
+class ParameterJacobian:
+    rows: np.ndarray   # state index of each nonzero
+    cols: np.ndarray   # parameter index of each nonzero
+    code: np.ndarray
+    consts: np.ndarray
+    n_regs: int
+    n_states: int
+    n_params: int
+
+    def dense(self, t: float, y, p) -> np.ndarray:
+        vals = np.zeros(len(self.rows))
+        vm.run(self.code, self.consts, float(t), np.asarray(y, dtype=float),
+               np.asarray(p, dtype=float), np.zeros(self.n_regs), vals)
+        out = np.zeros((self.n_states, self.n_params))
+        out[self.rows, self.cols] = vals
+        return out
 
 
 _CACHE: OrderedDict = OrderedDict()
@@ -564,4 +603,5 @@ def read_model(model, limits: Limits):
     return r.spec, r.issues
 
 
-__all__ = ["ModelError", "ModelIssue", "PreparedModel", "check_model", "prepare", "content_hash"]
+__all__ = ["ModelError", "ModelIssue", "PreparedModel", "ParameterJacobian", "check_model", "prepare",
+           "parameter_jacobian", "content_hash"]

@@ -39,6 +39,21 @@ class Equation:
     reversible: bool
 
 
+_ONE = Fraction(1)
+_COEFFICIENTS: dict[str, Fraction] = {}
+
+
+def _coefficient(text: str | None) -> Fraction:
+    if text is None:
+        return _ONE
+    value = _COEFFICIENTS.get(text)
+    if value is None:
+        value = Fraction(text)
+        if len(_COEFFICIENTS) < 1000:
+            _COEFFICIENTS[text] = value
+    return value
+
+
 def _side(text: str, offset: int, species, limits: Limits) -> tuple[tuple[str, Fraction], ...]:
     if not text.strip():
         return ()
@@ -56,7 +71,7 @@ def _side(text: str, offset: int, species, limits: Limits) -> tuple[tuple[str, F
         name, coef = m.group("name"), m.group("coef")
         if coef is not None and len(coef) > limits.max_literal_digits:
             raise ExprError("coefficient has too many digits", pos + m.start("coef"))
-        value = Fraction(coef) if coef is not None else Fraction(1)
+        value = _coefficient(coef)
         if value <= 0:
             raise ExprError("a coefficient must be positive", pos + m.start("coef"))
         if name not in species:
@@ -128,20 +143,21 @@ def stoichiometry(equations: list[Equation], state_index: dict[str, int], n: int
 
 
 def _left_null_space(sub: np.ndarray) -> np.ndarray:
-    """Orthonormal rows spanning {c : c^T sub = 0}: SVD for small matrices; for large
-    ones the eigenvectors of the small eigenvalues of sub sub^T (much cheaper than a
-    full SVD; the exact check afterwards guards against rounding)."""
-    if sub.shape[0] * sub.shape[1] <= 250_000:
-        U, s, _ = np.linalg.svd(sub, full_matrices=True)
-        tol = max(sub.shape) * np.finfo(float).eps * (s[0] if len(s) else 1.0)
-        return U[:, int(np.sum(s > tol)):].T
+    """Orthonormal rows spanning {c : c^T sub = 0}, from the eigenvectors of the
+    (near-)zero eigenvalues of the Gram matrix sub sub^T. Squaring the singular values
+    is harmless here: stoichiometric entries are small rationals, candidates must also
+    pass a residual test, and the integer laws are then checked exactly."""
     from scipy import sparse
     from scipy.linalg import eigh
     sp = sparse.csr_matrix(sub)
     G = (sp @ sp.T).toarray()
     scale = max(float(np.abs(G).max()), 1.0)
-    w, V = eigh(G, subset_by_value=(-np.inf, 1e-9 * scale), driver="evr")
-    if len(w):
+    if G.shape[0] <= 400:
+        w, V = np.linalg.eigh(G)
+        V = V[:, w <= 1e-9 * scale]
+    else:  # only the eigenvectors wanted
+        _, V = eigh(G, subset_by_value=(-np.inf, 1e-9 * scale), driver="evr")
+    if V.shape[1]:
         V = V[:, np.linalg.norm(sp.T @ V, axis=0) <= 1e-6 * np.sqrt(scale)]
     return V.T
 

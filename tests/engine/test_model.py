@@ -170,6 +170,20 @@ def test_size_limits_on_sections():
     assert issue.path == ("states",) and "limit is 10" in issue.message
 
 
+def test_numbers_outside_float64_are_issues_not_crashes():
+    found = issues_at({"states": {"A": 10 ** 400}, "ddt": {"A": 10 ** 400}})
+    assert "finite" in found[("states", "A")].message
+    assert ("ddt", "A") in found
+
+
+def test_parameter_jacobian_of_robertson():
+    from engine.model import parameter_jacobian
+    pj = parameter_jacobian(load("robertson.json"))
+    y1, y2, y3 = 0.9, 1e-4, 0.1
+    expected = [[-y1, 0.0, y2 * y3], [y1, -y2 ** 2, -y2 * y3], [0.0, y2 ** 2, 0.0]]  # d f / d (k1, k2, k3)
+    np.testing.assert_allclose(pj.dense(0.0, [y1, y2, y3], [0.04, 3e7, 1e4]), expected, rtol=1e-15)
+
+
 def test_fixed_state_cannot_have_ddt_and_non_object_model():
     model = variant(("states", "A"), {"initial": 1.0, "fixed": True})
     assert "fixed" in issues_at(model)[("ddt", "A")].message
