@@ -374,20 +374,20 @@ def precheck(text: object, limits: Limits = DEFAULT_LIMITS) -> None:
     if len(text) > limits.max_expression_length:
         raise ExprError(f"the expression is longer than {limits.max_expression_length} characters",
                         limits.max_expression_length)
-    depth = 0
+    opened: list[int] = []  # positions of the '(' not yet closed
     for i, ch in enumerate(text):
         if not (" " <= ch <= "~"):
             raise ExprError(f"character {ch!r} is not allowed; use printable ASCII only", i)
         if ch == "(":
-            depth += 1
-            if depth > limits.max_nesting_depth:
+            opened.append(i)
+            if len(opened) > limits.max_nesting_depth:
                 raise ExprError(f"parentheses nest deeper than {limits.max_nesting_depth}", i)
         elif ch == ")":
-            depth -= 1
-            if depth < 0:
+            if not opened:
                 raise ExprError("unmatched ')'", i)
-    if depth:
-        raise ExprError("unclosed '('", text.rindex("("))
+            opened.pop()
+    if opened:
+        raise ExprError("unclosed '('", opened[-1])
 
 
 def _tokenize(text: str, limits: Limits) -> list[tuple[str, str, int]]:
