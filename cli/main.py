@@ -119,17 +119,39 @@ def _wait_http(url: str, seconds: float) -> bool:
     return False
 
 
-def submit_demo(base: str) -> None:
+def local_key(redis_url: str) -> str:
+    """The local stack's admin key: made once, kept in var/local.key (mode 600)."""
+    from dataclasses import replace
+
+    from jobs import accounts
+    from jobs.settings import Settings
+    from jobs.store import JobStore
+
+    path = ROOT / "var" / "local.key"
+    store = JobStore.connect(replace(Settings.from_env(), redis_url=redis_url))
+    if path.exists():
+        key = path.read_text().strip()
+        if accounts.authenticate(store.r, store.keys, key) is not None:
+            return key
+    _, key = accounts.create_key(store.r, store.keys, "lab", "admin", label="local stack")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    path.write_text(key + "\n")
+    path.chmod(0o600)
+    return key
+
+
+def submit_demo(base: str, key: str | None) -> None:
+    auth = {"Authorization": f"Bearer {key}"} if key else {}
     body = DEMO_JOB.read_bytes()
     req = urllib.request.Request(base + "/v1/jobs", data=body, method="POST",
-                                 headers={"Content-Type": "application/json"})
+                                 headers={"Content-Type": "application/json", **auth})
     with urllib.request.urlopen(req, timeout=10) as resp:
         job = json.load(resp)
     job_url = base + job["links"]["self"]
     print(f"demo job submitted (invented Lakeside Lab scenario): {job_url}")
     deadline = time.time() + 120
     while time.time() < deadline:
-        with urllib.request.urlopen(job_url, timeout=10) as resp:
+        with urllib.request.urlopen(urllib.request.Request(job_url, headers=auth), timeout=10) as resp:
             view = json.load(resp)
         if view["state"] in ("succeeded", "failed", "cancelled"):
             print(f"demo job {view['state']}: {view.get('message') or ''}")
@@ -142,6 +164,8 @@ def submit_demo(base: str) -> None:
 
 
 def cmd_up(args) -> int:
+    from jobs.settings import Settings
+
     procs: list[tuple[str, subprocess.Popen]] = []
     redis_url = os.environ.get("REDIS_URL")
     try:
@@ -161,8 +185,12 @@ def cmd_up(args) -> int:
             print("the API did not come up within 30 s", file=sys.stderr)
             return 1
         print(f"dashboard: {base}/   API: {base}/v1   OpenAPI: {base}/v1/openapi.json")
+        key = None
+        if Settings.from_env().auth_mode != "off":
+            key = local_key(redis_url)
+            print(f"API key of the local owner 'lab' (admin; also in var/local.key): {key}")
         if not args.no_demo:
-            submit_demo(base)
+            submit_demo(base, key)
         print("stack running; Ctrl-C stops every process")
         while all(p.poll() is None for _, p in procs):
             time.sleep(0.5)

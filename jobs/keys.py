@@ -4,8 +4,13 @@
 |------------------------------|--------|-----------------------------------------|----------------|
 | {p}:job:{id}                 | hash   | job record (state, rev, times, spec...) | result TTL     |
 | {p}:result:{id}              | string | compressed result blob (jobs/blob.py)   | result TTL     |
-| {p}:index:all                | zset   | every job id, lexicographic = newest    | refreshed      |
-| {p}:index:state:{state}      | zset   | job ids by state                        | refreshed      |
+| {p}:index:state:{state}      | zset   | job ids by state (all owners)           | pruned lazily  |
+| {p}:owner:{o}:all            | zset   | one owner's job ids                     | pruned lazily  |
+| {p}:owner:{o}:state:{state}  | zset   | one owner's job ids by state            | pruned lazily  |
+| {p}:apikey:{digest}          | hash   | API key record: owner, role, id, created| none (revoked = deleted) |
+| {p}:apikeys                  | hash   | key id -> digest (for list and revoke)  | none           |
+| {p}:idem:{o}:{key}           | hash   | Idempotency-Key: body fingerprint, reply| 24 h           |
+| {p}:rate:{o}:{window}        | string | request count in a rate window          | 2 windows      |
 | {p}:worker:{name}            | string | worker heartbeat (health endpoint)      | 30 s           |
 
 Job ids sort by creation time (hex microseconds first), so the indexes are
@@ -52,8 +57,26 @@ class Keys:
     def result(self, job_id: str) -> str:
         return f"{self.prefix}:result:{job_id}"
 
-    def index_all(self) -> str:
-        return f"{self.prefix}:index:all"
+    def owner_all(self, owner: str) -> str:
+        return f"{self.prefix}:owner:{owner}:all"
+
+    def owner_state(self, owner: str, state: str) -> str:
+        return f"{self.prefix}:owner:{owner}:state:{state}"
+
+    def owner_state_indexes(self, owner: str) -> list[str]:
+        return [self.owner_state(owner, s) for s in STATES]
+
+    def api_key(self, digest: str) -> str:
+        return f"{self.prefix}:apikey:{digest}"
+
+    def api_key_ids(self) -> str:
+        return f"{self.prefix}:apikeys"
+
+    def idempotency(self, owner: str, key: str) -> str:
+        return f"{self.prefix}:idem:{owner}:{key}"
+
+    def rate(self, owner: str, window: int) -> str:
+        return f"{self.prefix}:rate:{owner}:{window}"
 
     def index_state(self, state: str) -> str:
         return f"{self.prefix}:index:state:{state}"

@@ -5,19 +5,19 @@ Terminal states are immutable. A running attempt is fenced by its attempt
 number: only the holder of the current attempt may heartbeat or finish, so a
 redelivered message or a stale worker can never write a second result.
 
-KEYS for every script: job hash, then the five state indexes in the order of
-``keys.STATES`` (queued, running, succeeded, failed, cancelled), then extras.
+KEYS for every script that moves a job: job hash, the five global state indexes
+in the order of ``keys.STATES`` (queued, running, succeeded, failed, cancelled),
+the owner's five state indexes in the same order, then extras.
 """
 
 # Shared Lua helper: move a job id between state indexes.
 _MOVE = """
-local function idx(state)
-  local order = {queued=2, running=3, succeeded=4, failed=5, cancelled=6}
-  return KEYS[order[state]]
-end
+local ORDER = {queued=2, running=3, succeeded=4, failed=5, cancelled=6}
 local function move(id, from, to)
-  redis.call('ZREM', idx(from), id)
-  redis.call('ZADD', idx(to), 0, id)
+  redis.call('ZREM', KEYS[ORDER[from]], id)
+  redis.call('ZADD', KEYS[ORDER[to]], 0, id)
+  redis.call('ZREM', KEYS[ORDER[from] + 5], id)
+  redis.call('ZADD', KEYS[ORDER[to] + 5], 0, id)
 end
 """
 
@@ -57,14 +57,14 @@ end
 return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
 """
 
-# KEYS[7]: result key. ARGV: id, attempt, now, state, outcome, message, summary, ttl, has_result, blob
+# KEYS[12]: result key. ARGV: id, attempt, now, state, outcome, message, summary, ttl, has_result, blob
 # Returns 1 when this call wrote the terminal state, 0 when fenced out.
 FINISH = _MOVE + """
 local id, attempt, now = ARGV[1], ARGV[2], ARGV[3]
 if redis.call('HGET', KEYS[1], 'state') ~= 'running' then return 0 end
 if redis.call('HGET', KEYS[1], 'attempt') ~= attempt then return 0 end
 local ttl = tonumber(ARGV[8])
-if ARGV[9] == '1' then redis.call('SET', KEYS[7], ARGV[10], 'EX', ttl) end
+if ARGV[9] == '1' then redis.call('SET', KEYS[12], ARGV[10], 'EX', ttl) end
 redis.call('HINCRBY', KEYS[1], 'writes', 1)  -- evidence for tests: exactly one terminal write
 redis.call('HSET', KEYS[1], 'state', ARGV[4], 'outcome', ARGV[5], 'message', ARGV[6],
   'summary', ARGV[7], 'finished', now)

@@ -28,6 +28,10 @@ class Settings:
     default_max_wall_seconds: float = 600.0
     max_body_bytes: int = 2 * 1024 * 1024
     max_output_points: int = 100_000
+    auth_mode: str = "keys"              # "keys": Bearer API keys required; "off": one local owner
+    rate_limit: int = 600                # requests per owner per rate window
+    rate_window_seconds: int = 60
+    max_active_jobs: int = 2000          # queued + running jobs per owner
 
     @classmethod
     def from_env(cls) -> "Settings":

@@ -106,10 +106,12 @@ class JobStore:
         return problems
 
     def _script_keys(self, job_id: str, *extra: str) -> list[str]:
-        return [self.keys.job(job_id), *self.keys.state_indexes(), *extra]
+        owner = _s(self.r.hget(self.keys.job(job_id), "owner")) or ""
+        return [self.keys.job(job_id), *self.keys.state_indexes(),
+                *self.keys.owner_state_indexes(owner), *extra]
 
     # ---- API side -------------------------------------------------------
-    def create(self, spec: dict, title: str, method: str, owner: str = "") -> JobRecord:
+    def create(self, spec: dict, title: str, method: str, owner: str) -> JobRecord:
         """Write a queued job record (one transaction) and return it."""
         now = time.time()
         job_id = new_job_id(now)
@@ -120,17 +122,26 @@ class JobStore:
                                 "attempt": 0, "title": title, "method": method, "owner": owner,
                                 "cancel": "0", "spec": spec_blob})
         pipe.expire(key, self.settings.result_ttl_seconds)
-        pipe.zadd(self.keys.index_all(), {job_id: 0})
         pipe.zadd(self.keys.index_state("queued"), {job_id: 0})
+        pipe.zadd(self.keys.owner_all(owner), {job_id: 0})
+        pipe.zadd(self.keys.owner_state(owner, "queued"), {job_id: 0})
         pipe.execute()
         return self.get(job_id)
 
-    def get(self, job_id: str) -> Optional[JobRecord]:
-        return _record(job_id, self.r.hmget(self.keys.job(job_id), VIEW_FIELDS))
+    def get(self, job_id: str, owner: Optional[str] = None) -> Optional[JobRecord]:
+        """The job, or None when it does not exist or belongs to another owner."""
+        rec = _record(job_id, self.r.hmget(self.keys.job(job_id), VIEW_FIELDS))
+        if rec is None or (owner is not None and rec.owner != owner):
+            return None
+        return rec
 
     def rev(self, job_id: str) -> Optional[int]:
         v = self.r.hget(self.keys.job(job_id), "rev")
         return None if v is None else int(v)
+
+    def rev_and_owner(self, job_id: str) -> tuple[Optional[int], Optional[str]]:
+        rev, owner = self.r.hmget(self.keys.job(job_id), "rev", "owner")
+        return (None if rev is None else int(rev)), _s(owner)
 
     def spec(self, job_id: str) -> Optional[dict]:
         blob = self.r.hget(self.keys.job(job_id), "spec")
@@ -142,9 +153,10 @@ class JobStore:
     def cancel(self, job_id: str) -> str:
         return _s(self._cancel(keys=self._script_keys(job_id), args=[job_id, repr(time.time())]))
 
-    def list(self, state: Optional[str], limit: int, after: Optional[str]) -> tuple[list[JobRecord], Optional[str]]:
-        """Newest first. ``after`` is the last id of the previous page."""
-        index = self.keys.index_state(state) if state else self.keys.index_all()
+    def list(self, owner: str, state: Optional[str], limit: int,
+             after: Optional[str]) -> tuple[list[JobRecord], Optional[str]]:
+        """One owner's jobs, newest first. ``after`` is the last id of the previous page."""
+        index = self.keys.owner_state(owner, state) if state else self.keys.owner_all(owner)
         records: list[JobRecord] = []
         cursor = after
         while len(records) < limit:
@@ -166,12 +178,25 @@ class JobStore:
                     return records, records[-1].id
                 cursor = i
             if stale:
-                self.r.zrem(index, *stale)
-                if index != self.keys.index_all():
-                    self.r.zrem(self.keys.index_all(), *stale)
+                self._prune(owner, stale)
             if len(ids) <= limit and not stale:
                 return records, None
         return records, records[-1].id if records else None
+
+    def _prune(self, owner: str, ids: list[str]) -> None:
+        """Drop index entries of records that have expired."""
+        pipe = self.r.pipeline(transaction=False)
+        for index in [self.keys.owner_all(owner), *self.keys.owner_state_indexes(owner),
+                      *self.keys.state_indexes()]:
+            pipe.zrem(index, *ids)
+        pipe.execute()
+
+    def active_count(self, owner: str) -> int:
+        """Queued plus running jobs of one owner (for quotas)."""
+        pipe = self.r.pipeline(transaction=False)
+        pipe.zcard(self.keys.owner_state(owner, "queued"))
+        pipe.zcard(self.keys.owner_state(owner, "running"))
+        return sum(pipe.execute())
 
     def queue_counts(self) -> dict[str, int]:
         pipe = self.r.pipeline(transaction=False)

@@ -5,11 +5,13 @@ from datetime import datetime, timezone
 
 from flask import Blueprint, Response, current_app, json, request, url_for
 
+from jobs import guards
 from jobs.keys import STATES, is_job_id
 from jobs.store import JobRecord, make_etag
 from schemas.job import JobSpecSchema, describe_model
 from schemas.views import CreatedSchema, JobPageSchema, JobViewSchema
 from service import results
+from service.auth import current_owner
 from service.jsonbody import read_json_object
 from service.problems import ApiProblem
 
@@ -49,7 +51,8 @@ def _json(body, status: int = 200, headers: dict | None = None) -> Response:
 
 
 def _find(job_id: str) -> JobRecord:
-    rec = _ctx().store.get(job_id) if is_job_id(job_id) else None
+    """The caller's job; another owner's job is 404, exactly like a missing one."""
+    rec = _ctx().store.get(job_id, owner=current_owner()) if is_job_id(job_id) else None
     if rec is None:
         raise ApiProblem(404, "Not Found", f"no job with id {job_id!r}", kind="job-not-found")
     return rec
@@ -58,12 +61,49 @@ def _find(job_id: str) -> JobRecord:
 @bp.post("/jobs")
 def create_job():
     body = read_json_object()
+    key = request.headers.get("Idempotency-Key")
+    if key is None:
+        return _create(body)
+    return idempotent(key, lambda: _create(body))
+
+
+def idempotent(key: str, create) -> Response:
+    """Run ``create`` once per (owner, Idempotency-Key); replay its reply on retries."""
+    if not (1 <= len(key) <= 200 and key.isascii() and key.isprintable()):
+        raise ApiProblem(400, "Bad Idempotency-Key", "use 1-200 printable ASCII characters (a UUID is ideal)")
+    r, keys, owner = _ctx().store.r, _ctx().store.keys, current_owner()
+    status, reply = guards.idempotency_begin(r, keys, owner, key, guards.fingerprint(request.get_data()))
+    if status == "mismatch":
+        raise ApiProblem(422, "Idempotency-Key reused", "this Idempotency-Key was used with a different "
+                         "body; use a new key for a new request", kind="idempotency-mismatch")
+    if status == "in_flight":
+        raise ApiProblem(409, "Request in progress", "the first request with this Idempotency-Key is "
+                         "still being processed; retry shortly", kind="idempotency-in-flight",
+                         headers={"Retry-After": "1"})
+    if status == "replay":
+        return Response(reply.body, status=reply.status, mimetype="application/json",
+                        headers={**reply.headers, "Idempotent-Replayed": "true"})
+    try:
+        resp = create()
+    except Exception:
+        guards.idempotency_abandon(r, keys, owner, key)
+        raise
+    guards.idempotency_finish(r, keys, owner, key, guards.IdempotentReply(
+        resp.status_code, resp.get_data(as_text=True),
+        {k: v for k, v in resp.headers.items() if k in ("Location", "Retry-After", "ETag")}))
+    return resp
+
+
+def _create(body: dict) -> Response:
     spec = JobSpecSchema().load(body)
-    ctx = _ctx()
+    ctx, owner = _ctx(), current_owner()
     _check_output_cap(spec, ctx.settings.max_output_points)
+    if ctx.store.active_count(owner) >= ctx.settings.max_active_jobs:
+        raise ApiProblem(429, "Quota reached", f"at most {ctx.settings.max_active_jobs} queued or running "
+                         "jobs per key; wait for some to finish", kind="quota", headers={"Retry-After": "30"})
     title = spec.get("label") or spec["model"].get("title") or "untitled"
     # The record is written before the message is published: the record is the truth.
-    rec = ctx.store.create(JobSpecSchema().dump(spec), title=title[:200], method=spec["method"])
+    rec = ctx.store.create(JobSpecSchema().dump(spec), title=title[:200], method=spec["method"], owner=owner)
     ctx.publisher.publish(rec.id)
     location = url_for("jobs.get_job", job_id=rec.id)
     return _json(CreatedSchema().dump({"id": rec.id, "state": rec.state, "links": _links(rec.id)}),
@@ -103,7 +143,7 @@ def list_jobs():
     if cursor is not None and not is_job_id(cursor):
         raise ApiProblem(400, "Bad Request", "cursor must be a value from a previous page's Link header",
                          errors=[{"pointer": "/query/cursor", "detail": "not a cursor"}])
-    records, next_cursor = _ctx().store.list(state, limit, cursor)
+    records, next_cursor = _ctx().store.list(current_owner(), state, limit, cursor)
     headers = {}
     if next_cursor:
         args = {"limit": limit, "cursor": next_cursor, **({"state": state} if state else {})}
@@ -117,7 +157,9 @@ def get_job(job_id: str):
     store = _ctx().store
     inm = request.headers.get("If-None-Match")
     if inm and is_job_id(job_id):
-        rev = store.rev(job_id)  # one Redis command for an unchanged poll
+        rev, owner = store.rev_and_owner(job_id)  # one Redis command for an unchanged poll
+        if owner != current_owner():
+            rev = None
         if rev is not None and make_etag(job_id, rev) in [t.strip() for t in inm.split(",")]:
             return Response(status=304, headers={"ETag": make_etag(job_id, rev)})
     rec = _find(job_id)

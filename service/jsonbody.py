@@ -26,7 +26,7 @@ def read_json_object() -> dict:
     if mimetype != "application/json" and not mimetype.endswith("+json"):
         raise ApiProblem(415, "Unsupported Media Type",
                          f"send the body as application/json (got {mimetype or 'no Content-Type'})")
-    raw = request.get_data(cache=False)  # MAX_CONTENT_LENGTH is enforced here (413)
+    raw = request.get_data()  # MAX_CONTENT_LENGTH is enforced here (413); cached for fingerprints
     try:
         text = raw.decode("utf-8")
         body = json.loads(text, parse_constant=_no_constants, object_pairs_hook=_no_duplicates)

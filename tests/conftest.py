@@ -64,7 +64,7 @@ def settings(redis_server) -> Settings:
     """Settings with a key prefix and queue of their own, so tests never share keys."""
     tag = uuid.uuid4().hex[:8]
     return Settings(redis_url=redis_server.url, key_prefix=f"t{tag}",
-                    interactive_queue=f"stifflane.test.{tag}", lease_seconds=3.0)
+                    interactive_queue=f"stifflane.test.{tag}", lease_seconds=3.0, auth_mode="off")
 
 
 @pytest.fixture

@@ -20,6 +20,7 @@ class Stack:
         tag = uuid.uuid4().hex[:8]
         self.env = dict(os.environ, REDIS_URL=redis_url, STIFFLANE_KEY_PREFIX=f"e{tag}",
                         STIFFLANE_INTERACTIVE_QUEUE=f"stifflane.e2e.{tag}", STIFFLANE_LEASE_SECONDS="3",
+                        STIFFLANE_AUTH_MODE="off",
                         PYTHONPATH=str(ROOT))
         self.port = free_port()
         self.base = f"http://127.0.0.1:{self.port}"

@@ -10,7 +10,7 @@ SPEC = {"model": {"states": {"a": 1.0}}, "span": [0, 1]}
 
 
 def make(store, n=1):
-    return [store.create(SPEC, title=f"job {i}", method="auto") for i in range(n)]
+    return [store.create(SPEC, title=f"job {i}", method="auto", owner="ana") for i in range(n)]
 
 
 def test_a_new_job_is_queued_with_revision_one(store):
@@ -88,9 +88,9 @@ def test_a_job_that_kills_its_worker_three_times_fails(store):
 
 def test_listing_is_newest_first_with_cursor_pages(store):
     recs = make(store, 5)
-    page1, cursor = store.list(None, 2, None)
-    page2, cursor2 = store.list(None, 2, cursor)
-    page3, cursor3 = store.list(None, 2, cursor2)
+    page1, cursor = store.list("ana", None, 2, None)
+    page2, cursor2 = store.list("ana", None, 2, cursor)
+    page3, cursor3 = store.list("ana", None, 2, cursor2)
     ids = [r.id for r in page1 + page2 + page3]
     assert ids == [r.id for r in reversed(recs)] and cursor3 is None
 
@@ -99,9 +99,9 @@ def test_listing_filters_by_state_and_skips_expired_records(store):
     a, b, c = make(store, 3)
     store.cancel(b.id)
     store.r.delete(store.keys.job(c.id))  # as if its TTL ran out
-    queued, _ = store.list("queued", 10, None)
+    queued, _ = store.list("ana", "queued", 10, None)
     assert [r.id for r in queued] == [a.id]
-    everything, _ = store.list(None, 10, None)
+    everything, _ = store.list("ana", None, 10, None)
     assert [r.id for r in everything] == [b.id, a.id]
 
 
@@ -129,3 +129,11 @@ def test_a_redis_that_evicts_keys_is_reported(store):
     finally:
         store.r.config_set("maxmemory-policy", before)
     assert store.durability_problems() == []
+
+
+def test_owners_see_only_their_own_jobs(store):
+    (mine,) = make(store)
+    theirs = store.create(SPEC, title="other", method="auto", owner="ben")
+    assert store.get(theirs.id, owner="ana") is None and store.get(mine.id, owner="ana") is not None
+    assert [r.id for r in store.list("ben", None, 10, None)[0]] == [theirs.id]
+    assert store.active_count("ana") == 1
