@@ -242,12 +242,19 @@ def _pow(x, e):
 @njit(cache=True, nogil=True)
 def rhs(kernel, t, y, p, regs, out):
     """dy/dt into ``out`` (length n): the program's terms, then the mass-action terms."""
-    ma = kernel.ma
+    rhs_parts(kernel.rhs_code, kernel.consts, kernel.ma, t, y, p, regs, out)
+
+
+@njit(cache=True, nogil=True)
+def rhs_parts(rhs_code, consts, ma, t, y, p, regs, out):
+    """:func:`rhs` from the three arrays it reads. Hot loops that take these out of the
+    kernel once can call this instead: passing the whole Kernel tuple into a compiled
+    function costs a reference-count update per array field on every call."""
     if ma[0] > 0:
         out[:] = 0.0  # the program then writes only the states with their own ddt terms
-    run(kernel.rhs_code, kernel.consts, t, y, p, regs, out)
+    run(rhs_code, consts, t, y, p, regs, out)
     if ma[0] > 0:
-        mass_action(ma, kernel.consts, y, p, regs, out)
+        mass_action(ma, consts, y, p, regs, out)
 
 
 @njit(cache=True, nogil=True)
