@@ -1,0 +1,17 @@
+"""Python client of the Stifflane stiff-ODE job service.
+
+    from stifflane_client import Client
+    c = Client("http://127.0.0.1:8750")          # key: key=... or $STIFFLANE_KEY
+    job = c.submit("examples/jobs/lakeside_demo.json")
+    job.wait(progress=True)
+    res = job.result()                            # res.t, res.y, res["T"], res.to_dataframe()
+"""
+from stifflane_client.client import Client, Job
+from stifflane_client.errors import (ApiError, AuthError, InvalidSpec, JobFailed, ServiceUnavailable,
+                                     StifflaneError, WaitTimeout)
+from stifflane_client.results import Result
+from stifflane_client.spec import Model, job_spec, load_spec
+
+__all__ = ["Client", "Job", "Result", "Model", "job_spec", "load_spec", "ApiError", "AuthError",
+           "InvalidSpec", "JobFailed", "ServiceUnavailable", "StifflaneError", "WaitTimeout"]
+__version__ = "0.1.0"
