@@ -1,0 +1,138 @@
+"""The problem library: published test problems, each run through the model language.
+
+Every problem carries its source, its model dict (the project's JSON layout; the
+files in examples/models are used where they exist), the span, the tolerance
+scaling, the accuracy floor used to count digits, published end values where
+known, and hand-written peers' functions (numpy for solve_ivp, numba for odeint
+and CVODE). Reference end values are recomputed with SciPy (see
+bench/references.py) as an independent second opinion.
+"""
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Callable, Optional
+
+import numpy as np
+
+from bench import brusselator as B, handwritten as H
+
+ROOT = Path(__file__).resolve().parent.parent
+MODELS = ROOT / "examples" / "models"
+
+# HIRES at t = 321.8122 (Test Set for IVP Solvers, Mazzia & Magherini; values from memory).
+HIRES_PUBLISHED = np.array([
+    0.7371312573325668e-3, 0.1442485726316185e-3, 0.5888729740967575e-4,
+    0.1175651343283149e-2, 0.2386356198831331e-2, 0.6238968252742796e-2,
+    0.2849998395185769e-2, 0.2850001604814231e-2])
+
+# Arenstorf orbit: periodic with period T (Hairer, Norsett & Wanner I, sec. II.0; from memory).
+ARENSTORF_T = 17.0652165601579625588917206249
+ARENSTORF_Y0 = np.array([0.994, 0.0, 0.0, -2.00158510637908252240537862224])
+
+
+@dataclass
+class Problem:
+    name: str
+    source: str
+    model: dict
+    t_end: float
+    stiff: bool
+    atol_scale: float          # atol = atol_scale * rtol for every run
+    floor: float               # digits use |y - ref| / (|ref| + floor)
+    f: Callable                # numpy f(t, y) (solve_ivp peers)
+    jac: Optional[Callable]    # numpy jac(t, y), or None for non-stiff problems
+    jit: str                   # prefix of the numba functions in bench.jitted
+    p_jit: np.ndarray          # parameters for the numba functions
+    published: Optional[np.ndarray] = None
+    published_note: str = ""
+    sparse: bool = False       # large sparse system (peers use sparse linear algebra)
+    limits: dict = field(default_factory=dict)  # engine Limits overrides for prepare
+    reference_rtol: float = 1e-12
+    n: int = 0
+
+    def atol(self, rtol: float) -> float:
+        return self.atol_scale * rtol
+
+
+def _load(name: str) -> dict:
+    return json.loads((MODELS / f"{name}.json").read_text())
+
+
+RAMP_MODEL = {
+    "title": "Invented example: ramped exchange, non-stiff at first, stiff later",
+    "description": ("Invented example: a -> b at rate 1, b -> c at rate k = 10^t that ramps "
+                    "from 1 to 1e7 over the span, c -> a at rate 0.1. Conserves a + b + c. "
+                    "Explicit steps suit the start; the end is stiff."),
+    "states": {"a": 1.0, "b": 0.0, "c": 0.0},
+    "ddt": {"a": "-a + 0.1*c", "b": "a - 10^t*b", "c": "10^t*b - 0.1*c"},
+}
+
+
+def _bruss(n: int) -> Problem:
+    f, jac = H.bruss_functions(n)
+    p = np.concatenate([[n, B.ALPHA * n * n, B.T_SOURCE], 5.0 * B.source_mask(n).ravel()])
+    return Problem(
+        name=f"brusselator{n}", n=2 * n * n,
+        source="2-D Brusselator (Hairer & Wanner, Solving ODEs II, sec. IV.10)",
+        model=B.model(n), t_end=B.T_END, stiff=True, atol_scale=1.0, floor=1e-6,
+        f=f, jac=jac, jit="bruss", p_jit=p.astype(float), sparse=True,
+        limits={"max_states": 40000}, reference_rtol=1e-10)
+
+
+def build(name: str) -> Problem:
+    """One problem by name (see NAMES)."""
+    if name == "robertson":
+        return Problem(
+            name=name, n=3, source="Robertson 1966; Hairer & Wanner, Solving ODEs II, sec. IV.1",
+            model=_load("robertson"), t_end=1e11, stiff=True, atol_scale=1e-4, floor=1e-10,
+            f=H.robertson_f, jac=H.robertson_j, jit="robertson",
+            p_jit=np.array([0.04, 3e7, 1e4]),
+            published_note="Test Set values are printed at t=4e10, not 1e11: SciPy reference only")
+    if name == "hires":
+        return Problem(
+            name=name, n=8, source="Schaefer 1975; Test Set for IVP Solvers (Mazzia & Magherini)",
+            model=_load("hires"), t_end=321.8122, stiff=True, atol_scale=1e-4, floor=1e-7,
+            f=H.hires_f, jac=H.hires_j, jit="hires", p_jit=np.array([280.0]),
+            published=HIRES_PUBLISHED, published_note="Test Set end values (from memory)")
+    if name == "vanderpol":
+        return Problem(
+            name=name, n=2, source="Van der Pol, mu = 1000 (Hairer & Wanner, Solving ODEs II, sec. IV.1)",
+            model=_load("vanderpol"), t_end=2000.0, stiff=True, atol_scale=1e-2, floor=1e-6,
+            f=H.vanderpol_f, jac=H.vanderpol_j, jit="vanderpol", p_jit=np.array([1000.0]),
+            published_note="unscaled form over [0, 2000]: SciPy reference only")
+    if name == "arenstorf":
+        return Problem(
+            name=name, n=4, source="Arenstorf orbit (Hairer, Norsett & Wanner, Solving ODEs I, sec. II.0)",
+            model=_load("arenstorf"), t_end=ARENSTORF_T, stiff=False, atol_scale=1e-3, floor=1e-6,
+            f=H.arenstorf_f, jac=None, jit="arenstorf", p_jit=np.array([0.012277471]),
+            published=ARENSTORF_Y0, published_note="periodic: end state = start state (from memory)")
+    if name == "lorenz":
+        return Problem(
+            name=name, n=3, source="Lorenz 1963 (sigma 10, rho 28, beta 8/3), t in [0, 10]",
+            model=_load("lorenz"), t_end=10.0, stiff=False, atol_scale=1e-3, floor=1e-3,
+            f=H.lorenz_f, jac=None, jit="lorenz", p_jit=np.array([10.0, 28.0, 8.0 / 3.0]),
+            published_note="chaotic; SciPy reference only")
+    if name == "ramp":
+        return Problem(
+            name=name, n=3, source="invented: non-stiff at first, stiff later",
+            model=RAMP_MODEL, t_end=7.0, stiff=True, atol_scale=1e-4, floor=1e-8,
+            f=H.ramp_f, jac=H.ramp_j, jit="ramp", p_jit=np.zeros(1))
+    if name.startswith("brusselator"):
+        return _bruss(int(name[len("brusselator"):]))
+    raise KeyError(f"unknown problem '{name}'; choose one of {', '.join(NAMES)}")
+
+
+NAMES = ("robertson", "hires", "vanderpol", "brusselator32", "brusselator128",
+         "arenstorf", "lorenz", "ramp")
+QUICK = ("robertson", "hires", "vanderpol")
+SMALL_STIFF = ("robertson", "hires", "vanderpol")
+NON_STIFF = ("arenstorf", "lorenz")
+
+
+def prepare_problem(problem: Problem):
+    """The engine's PreparedModel for ``problem`` (prepare caches by content hash)."""
+    from engine.limits import Limits
+    from engine.model import prepare
+    return prepare(problem.model, Limits(**problem.limits) if problem.limits else None)
