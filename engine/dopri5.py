@@ -41,7 +41,9 @@ def attempt(kernel, p, regs, t, y, h, K, ynew, ysti, err_vec, atol, rtol):
     # ysti now holds the 6th stage point (t + h), shared with ynew.
     num = 0.0
     den = 0.0
+    ysq = 0.0
     for i in range(n):
+        ysq += y[i] * y[i]
         acc = 0.0
         for j in range(7):
             acc += DP_E[j] * K[j, i]
@@ -51,7 +53,8 @@ def attempt(kernel, p, regs, t, y, h, K, ynew, ysti, err_vec, atol, rtol):
         d = ynew[i] - ysti[i]
         den += d * d
     err = err_norm(err_vec, y, ynew, atol, rtol)
-    rho = math.sqrt(num / den) if den > 0.0 else 0.0
+    # Differences at round-off level carry no information about rho.
+    rho = math.sqrt(num / den) if den > 1e-28 * ysq + 1e-300 else 0.0
     return err, rho
 
 

@@ -14,8 +14,8 @@ from engine import dopri5, radau5, rodas, switching, vm
 from engine.errors_norm import initial_step
 from engine.events import dense_eval, scan
 from engine.state import (DONE, FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
-                          F_ERR_OLD, F_EXPL_NEEDED, F_H, F_H_LAST, F_H_LU, F_H_OLD,
-                          F_HEXP, F_HMAX, F_NEWTON_TOL, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_BAD,
+                          F_ERR_OLD, F_EXPL_NEEDED, F_H, F_H_JCHECK, F_H_LAST, F_H_LU, F_H_OLD,
+                          F_HEXP, F_HMAX, F_NEWTON_TOL, F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_BAD,
                           F_T_OLD, F_TEND, I_ACCEPTED, I_CONT_METHOD, I_FAIL_KIND,
                           I_FIRST, I_HAS_TIME, I_HAVE_CONT, I_HIST_N, I_HIST_STRIDE,
                           I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
@@ -26,8 +26,8 @@ from engine.state import (DONE, FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SI
                           I_TERMINAL, RUNNING, ST_NEWTON_FAILURE, ST_NON_FINITE,
                           ST_STEP_LIMIT, ST_STEP_UNDERFLOW, V_ERR, V_F, V_F0, V_FDT,
                           V_K, V_NNMASK, V_PV, V_PW, V_SCALE, V_W, V_YEV, V_YNEW, V_YTMP, V_Z)
-from engine.switching import (P_BOUNDARY, P_POWER_ITERS, REASON_EXPLICIT_CHEAPER,
-                              REASON_STIFF)
+from engine.switching import (P_BOUNDARY, P_POWER_ITERS, P_UNSTABLE,
+                              REASON_EXPLICIT_CHEAPER, REASON_STIFF, REASON_UNSTABLE)
 from engine.tableaux import DOPRI5, RADAU5, RODAS
 
 EPS = 2.220446049250313e-16
@@ -46,6 +46,7 @@ def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
     for i in range(y.shape[0]):
         if not np.isfinite(f0[i]) or not np.isfinite(y[i]):
             return False
+    V[V_K, :] = f0
     if gv.shape[1] > 0:
         vm.events(kernel, t, y, p, regs, gv[0])
     if fs[F_H] <= 0.0:
@@ -96,6 +97,7 @@ def _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
     err, rho = dopri5.attempt(kernel, p, regs, fs[F_T], y, h, K, ynew, V[V_YTMP],
                               V[V_ERR], atol, rtol)
     iw[I_NFEV] += dopri5.STAGE_EVALS
+    fs[F_RATE] = rho  # kept for the instability check of automatic mode
     if not (err < np.inf):
         _reject(fs, iw, h, 0.2, FAIL_NONFINITE)
         return False
@@ -285,6 +287,10 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
             y_out[k, :] = ynew
         else:
             dense_eval(method, cont, t_old, h, t_out[k], y_out[k])
+            if iw[I_NONNEG]:  # the interpolant may dip below zero between points
+                for i in range(y.shape[0]):
+                    if y_out[k, i] < 0.0 and V[V_NNMASK, i] != 0.0:
+                        y_out[k, i] = 0.0
         k += 1
     iw[I_IOUT] = k
     iw[I_ACCEPTED] += 1
@@ -307,6 +313,22 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
         return True
     y[:] = ynew
     fs[F_T] = t_new
+    return False
+
+
+@njit(cache=True, nogil=True)
+def _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
+    """Confirm a large stage estimate of h*rho with the Jacobian at the step start."""
+    if jv.shape[0] == 0 or J.shape[0] != y.shape[0]:
+        return False
+    vm.jac_dense(kernel, fs[F_T], y, p, regs, jv, J)
+    iw[I_NJEV] += 1
+    rho = switching.spectral_radius(J, V[V_PV], V[V_PW], int(pol[P_POWER_ITERS]))
+    fs[F_RHO_J] = rho
+    if h * rho > pol[P_BOUNDARY]:
+        fs[F_RHO] = rho
+        fs[F_HEXP] = pol[P_BOUNDARY] / rho
+        return True
     return False
 
 
@@ -351,11 +373,14 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
         return
     counters = iw[I_STIFF_POS:I_STIFF_POS + 2]
     if method == DOPRI5 and jv.shape[0] > 0 and J.shape[0] == y.shape[0] \
-            and iw[I_STEPS_IN_METHOD] % JAC_CHECK_EVERY == 1:
+            and (iw[I_STEPS_IN_METHOD] % JAC_CHECK_EVERY == 1
+                 or fs[F_H_LAST] > 2.0 * fs[F_H_JCHECK]):
         # The stage estimate of rho sees a fast mode only once it has grown
-        # back; a periodic Jacobian-based estimate finds it at once.
+        # back; a periodic Jacobian-based estimate finds it at once. It is
+        # refreshed when the step has doubled since (it may be stale).
         vm.jac_dense(kernel, t, y, p, regs, jv, J)
         iw[I_NJEV] += 1
+        fs[F_H_JCHECK] = fs[F_H_LAST]
         fs[F_RHO_J] = switching.spectral_radius(J, V[V_PV], V[V_PW],
                                                 int(pol[P_POWER_ITERS]))
     if method == DOPRI5:
@@ -413,6 +438,17 @@ def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         method = iw[I_METHOD]
         if method == DOPRI5:
             ok = _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h)
+            if iw[I_PINNED] < 0 and h * fs[F_RATE] > pol[P_UNSTABLE] * pol[P_BOUNDARY] \
+                    and _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
+                # Far outside the stability region: the step amplifies the fast
+                # modes; discard it and go implicit at once.
+                if ok:
+                    ok = False
+                    iw[I_REJECTED] += 1
+                fs[F_H_LAST] = h
+                _switch(fs, iw, swlog, switching.implicit_choice(pol, fs[F_RTOL]),
+                        REASON_UNSTABLE)
+                fs[F_H] = h
         elif method == RADAU5:
             ok = _try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
                              LUc, pivc, cbuf, pol, h)

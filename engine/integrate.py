@@ -132,6 +132,7 @@ class _Run:
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
         iw[S.I_MAX_STEPS] = o.max_steps
         iw[S.I_HIST_STRIDE] = 1
+        iw[S.I_STEPS_IN_METHOD] = o.policy.min_steps  # no hysteresis for the first method
         iw[S.I_FIRST] = 1
         iw[S.I_JAC_CURRENT] = -1
         iw[S.I_NONNEG] = int(self.V[S.V_NNMASK].any())

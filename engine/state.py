@@ -6,8 +6,8 @@ names index them. Vector work space is one (N_ROWS, n) array ``V``.
 # fs: float scalars
 F_T, F_H, F_TEND, F_HMAX, F_ERR_OLD, F_H_OLD, F_T_OLD, F_H_LAST = range(8)
 F_RHO, F_RTOL, F_NEWTON_TOL, F_EXPL_NEEDED, F_T_BAD, F_RATE, F_HEXP = range(8, 15)
-F_T0, F_H_LU, F_RHO_J = 15, 16, 17
-N_FS = 18
+F_T0, F_H_LU, F_RHO_J, F_H_JCHECK = 15, 16, 17, 18
+N_FS = 19
 
 # iw: integer scalars and counters
 (I_METHOD, I_PINNED, I_STATUS, I_ACCEPTED, I_REJECTED, I_NFEV, I_NJEV, I_NLU,

@@ -10,7 +10,12 @@
   ``back_ratio`` times the implicit step for ``nonstiff_tests`` consecutive
   steps, the explicit method is cheaper again (the idea of Petzold 1983, SIAM
   J. Sci. Stat. Comput. 4:136-148, for Adams/BDF).
-- Hysteresis: no switch before ``min_steps`` steps in the current method.
+- An explicit step whose stage estimate of h * rho exceeds ``unstable_ratio``
+  times the boundary, confirmed by the Jacobian (h * rho(J) beyond the
+  boundary), is discarded and the run goes implicit at once: the fast modes
+  would be amplified by orders of magnitude in one step.
+- Hysteresis: no switch before ``min_steps`` steps in the current method
+  (the first method of a run is exempt).
 
 Every switch is logged as a row (t, from, to, h, rho, explicit step, reason).
 """
@@ -22,14 +27,16 @@ from numba import njit
 # Indices into the policy array.
 P_BOUNDARY, P_STIFF_TESTS, P_NONSTIFF_TESTS, P_BACK_RATIO = 0, 1, 2, 3
 P_MIN_STEPS, P_RADAU_RTOL, P_RESET_AFTER, P_POWER_ITERS = 4, 5, 6, 7
-P_STIFF_THRESHOLD = 8
-N_POLICY = 9
+P_STIFF_THRESHOLD, P_UNSTABLE = 8, 9
+N_POLICY = 10
 
 # Reason codes in the switch log.
 REASON_STIFF = 1
 REASON_EXPLICIT_CHEAPER = 2
+REASON_UNSTABLE = 3
 REASON_NAMES = {REASON_STIFF: "stiffness_detected",
-                REASON_EXPLICIT_CHEAPER: "explicit_step_competitive"}
+                REASON_EXPLICIT_CHEAPER: "explicit_step_competitive",
+                REASON_UNSTABLE: "explicit_step_unstable"}
 LOG_COLUMNS = ("t", "from", "to", "h", "rho", "explicit_step", "reason")
 
 
@@ -46,12 +53,13 @@ class SwitchPolicy:
     stiff_threshold: float = 2.5   # h*rho above this is a positive test: below the
     # boundary, since the stage estimate of rho runs low and the controller hovers
     # under the boundary; non-stiff runs measured stay below 2.1 (docs/engine.md)
+    unstable_ratio: float = 3.0    # h*rho > this * boundary: reject and switch at once
 
     def as_array(self) -> np.ndarray:
         return np.array([self.boundary, self.stiff_tests, self.nonstiff_tests,
                          self.back_ratio, self.min_steps, self.radau_below_rtol,
                          self.reset_after, self.power_iterations,
-                         self.stiff_threshold], dtype=np.float64)
+                         self.stiff_threshold, self.unstable_ratio], dtype=np.float64)
 
 
 @njit(cache=True, nogil=True)
