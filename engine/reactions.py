@@ -203,7 +203,30 @@ def _exact_integer_matrix(exact: dict, shape) -> "object":
     return sparse.csc_matrix((np.array(vals, dtype=np.int64), (rows, cols)), shape=shape)
 
 
+_BLAS = []
+
+
+def _single_threaded_blas():
+    """One BLAS thread for the small dense problems here: on a shared machine, spinning
+    BLAS threads slow down everything else in the process (measured 4x on prepare())."""
+    if not _BLAS:
+        try:
+            from threadpoolctl import ThreadpoolController
+            _BLAS.append(ThreadpoolController())
+        except ImportError:  # optional dependency
+            _BLAS.append(None)
+    if _BLAS[0] is None:
+        import contextlib
+        return contextlib.nullcontext()
+    return _BLAS[0].limit(limits=1, user_api="blas")
+
+
 def conservation_laws(S: np.ndarray, exact: dict, eligible: list[int]) -> np.ndarray:
+    with _single_threaded_blas():
+        return _conservation_laws(S, exact, eligible)
+
+
+def _conservation_laws(S: np.ndarray, exact: dict, eligible: list[int]) -> np.ndarray:
     """Rows c (over all states, zero outside ``eligible``) with c^T S = 0.
 
     Found from the null space of S restricted to ``eligible`` rows, brought to
