@@ -8,7 +8,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from engine.derivative import gradients, jacobian
-from engine.expr import Builder, evaluate, parse, postorder
+from engine.expr import Builder, evaluate, postorder
+from engine.parser import parse
 
 NAMES = ("x", "y", "z")
 

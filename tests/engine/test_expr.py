@@ -7,7 +7,8 @@ import sys
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from engine.expr import Builder, ExprError, evaluate, parse, to_text
+from engine.expr import Builder, ExprError, evaluate, to_text
+from engine.parser import parse
 from engine.limits import Limits
 
 

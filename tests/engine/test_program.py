@@ -6,7 +6,8 @@ import pytest
 from hypothesis import given, settings, strategies as st
 
 from engine import vm
-from engine.expr import Builder, evaluate, parse
+from engine.expr import Builder, evaluate
+from engine.parser import parse
 from engine.limits import Limits
 from engine.program import ConstPool, compile_program
 
