@@ -1,18 +1,65 @@
-"""The dashboard: static pages served by the API, polling /v1 with ETags."""
+"""The dashboard: static pages served by the API; the pages call /v1 themselves.
+
+Pages: ``/`` (run board), ``/jobs/<id>`` (one job), ``/submit`` (new run),
+``/batches`` and ``/batches/<id>`` (sweeps). Assets under ``/ui/``; the example
+specs under ``/ui/examples/<name>.json``. Everything works offline: the charting
+library is vendored in static/vendor/.
+"""
 from __future__ import annotations
 
-from flask import Blueprint, send_from_directory, current_app
 import os
+from pathlib import Path
+
+from flask import Blueprint, abort, send_from_directory
 
 bp = Blueprint("dashboard", __name__)
 _STATIC = os.path.join(os.path.dirname(__file__), "static")
+_EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "jobs"
+_PAGE_HEADERS = {"Cache-Control": "no-cache", "X-Content-Type-Options": "nosniff",
+                 "Referrer-Policy": "same-origin"}
+
+
+def _page(name: str):
+    resp = send_from_directory(_STATIC, name)
+    resp.headers.update(_PAGE_HEADERS)
+    return resp
 
 
 @bp.get("/")
 def index():
-    return send_from_directory(_STATIC, "index.html")
+    return _page("index.html")
+
+
+@bp.get("/jobs/<job_id>")
+def job_page(job_id: str):
+    return _page("job.html")
+
+
+@bp.get("/submit")
+def submit_page():
+    return _page("submit.html")
+
+
+@bp.get("/batches")
+def batches_page():
+    return _page("batches.html")
+
+
+@bp.get("/batches/<batch_id>")
+def batch_page(batch_id: str):
+    return _page("batch.html")
+
+
+@bp.get("/ui/examples/<name>.json")
+def example(name: str):
+    """An example job spec from examples/jobs/ (the invented demo scenario)."""
+    if not _EXAMPLES.is_dir():
+        abort(404)
+    return send_from_directory(_EXAMPLES, f"{name}.json", mimetype="application/json")
 
 
 @bp.get("/ui/<path:name>")
 def asset(name: str):
-    return send_from_directory(_STATIC, name)
+    resp = send_from_directory(_STATIC, name)
+    resp.headers["X-Content-Type-Options"] = "nosniff"
+    return resp
