@@ -32,6 +32,7 @@ def _env(redis_url: str | None = None) -> dict:
     if redis_url:
         env["REDIS_URL"] = redis_url
     env.setdefault("NUMBA_CACHE_DIR", str(ROOT / "var" / "numba-cache"))
+    env.setdefault("OPENBLAS_NUM_THREADS", "1")  # one core per worker process; no BLAS thread fights
     env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(ROOT), env.get("PYTHONPATH")]))
     return env
 
@@ -87,7 +88,10 @@ def cmd_redis(args) -> int:
     from cli.redis_server import start_redis
 
     proc = start_redis(args.port, Path(args.data))
-    print(f"redis on redis://127.0.0.1:{args.port}/0 (data in {args.data}); Ctrl-C stops it")
+    from cli.redis_server import local_url
+
+    print(f"redis running (data in {args.data}); Ctrl-C stops it. For the other parts:\n"
+          f"  export REDIS_URL='{local_url(args.port, Path(args.data))}'")
     try:
         return proc.wait()
     except KeyboardInterrupt:
@@ -163,8 +167,14 @@ def submit_demo(base: str, key: str | None) -> None:
     print("demo job still running after 120 s; watch it on the dashboard")
 
 
+def _raise_interrupt(signum, frame):
+    raise KeyboardInterrupt
+
+
 def cmd_up(args) -> int:
     from jobs.settings import Settings
+
+    signal.signal(signal.SIGTERM, _raise_interrupt)  # stop the children on SIGTERM as on Ctrl-C
 
     procs: list[tuple[str, subprocess.Popen]] = []
     redis_url = os.environ.get("REDIS_URL")
@@ -172,11 +182,13 @@ def cmd_up(args) -> int:
         if not redis_url:
             from cli.redis_server import start_redis
 
+            from cli.redis_server import local_url
+
             procs.append(("redis", start_redis(args.redis_port, ROOT / "var" / "redis")))
-            redis_url = f"redis://127.0.0.1:{args.redis_port}/0"
+            redis_url = local_url(args.redis_port, ROOT / "var" / "redis")
         env = _env(redis_url)
         check_redis(redis_url)
-        print(f"redis: {redis_url}")
+        print(f"redis: {redis_url.split('@')[-1]} (password in var/redis/password)")
         subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True, cwd=ROOT)
         procs.append(("worker", subprocess.Popen(worker_command(args.concurrency), env=env, cwd=ROOT)))
         procs.append(("api", subprocess.Popen(api_command("127.0.0.1", args.port), env=env, cwd=ROOT)))

