@@ -18,6 +18,7 @@ def _env(name: str, default, cast):
 class Settings:
     redis_url: str = "redis://127.0.0.1:6390/0"
     key_prefix: str = "sl"
+    redis_timeout_seconds: float = 1.5   # a hung Redis gives a 503 within 2 s, never a hang
     result_ttl_seconds: int = 7 * 24 * 3600
     lease_seconds: float = 10.0          # a running attempt must heartbeat within this
     max_attempts: int = 3                # a job that kills its worker this often is failed
@@ -32,6 +33,12 @@ class Settings:
     rate_limit: int = 600                # requests per owner per rate window
     rate_window_seconds: int = 60
     max_active_jobs: int = 2000          # queued + running jobs per owner
+    batch_queue: str = "stifflane.batches"   # chunks of batches (jobs/batch_store.py)
+    max_batch_members: int = 100_000
+    batch_chunk_size: int = 200          # members per chunk unless the batch says otherwise
+    batch_max_chunks: int = 5_000        # larger chunks for larger batches beyond this
+    batch_chunks_in_flight: int = 8      # published, unfinished chunks per batch
+    max_batch_trajectory_values: int = 5_000_000
 
     @classmethod
     def from_env(cls) -> "Settings":

@@ -87,7 +87,8 @@ class JobStore:
 
     @classmethod
     def connect(cls, settings: Settings, **client_options) -> "JobStore":
-        options = dict(socket_timeout=5, socket_connect_timeout=2, health_check_interval=15)
+        t = settings.redis_timeout_seconds
+        options = dict(socket_timeout=t, socket_connect_timeout=t, health_check_interval=15)
         options.update(client_options)
         return cls(redis.Redis.from_url(settings.redis_url, **options), settings)
 

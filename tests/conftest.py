@@ -29,23 +29,33 @@ def free_port() -> int:
 
 
 class RedisServer:
-    def __init__(self):
-        self.dir = tempfile.mkdtemp(prefix="stifflane-redis-")
-        self.port = free_port()
+    """A real redis-server process with AOF on (fsync every second) and no eviction."""
+
+    def __init__(self, port: int | None = None, data_dir: str | None = None):
+        self.dir = data_dir or tempfile.mkdtemp(prefix="stifflane-redis-")
+        self.port = port or free_port()
+        self.url = f"redis://127.0.0.1:{self.port}/0"
+        self.start()
+
+    def start(self):
         self.proc = subprocess.Popen(
             [redis_binary(), "--port", str(self.port), "--bind", "127.0.0.1", "--dir", self.dir,
              "--save", "", "--appendonly", "yes", "--appendfsync", "everysec",
              "--maxmemory-policy", "noeviction", "--loglevel", "warning"],
             stdout=subprocess.DEVNULL)
-        self.url = f"redis://127.0.0.1:{self.port}/0"
         client = redis.Redis(port=self.port)
-        for _ in range(100):
+        for _ in range(200):
             try:
                 client.ping()
                 return
-            except redis.ConnectionError:
+            except (redis.ConnectionError, redis.BusyLoadingError):
                 time.sleep(0.05)
         raise RuntimeError("redis-server did not start")
+
+    def kill(self):
+        """kill -9: what survives is what the AOF had written."""
+        self.proc.kill()
+        self.proc.wait(10)
 
     def stop(self):
         self.proc.terminate()
