@@ -12,6 +12,12 @@
 | {p}:idem:{o}:{key}           | hash   | Idempotency-Key: body fingerprint, reply| 24 h           |
 | {p}:rate:{o}:{window}        | string | request count in a rate window          | 2 windows      |
 | {p}:worker:{name}            | string | worker heartbeat (health endpoint)      | 30 s           |
+| {p}:batch:{id}               | hash   | batch record: state, counts, spec, design | result TTL   |
+| {p}:batch:{id}:chunks        | hash   | chunk states s<i> and attempts a<i>     | result TTL     |
+| {p}:batch:{id}:leases        | zset   | running chunk -> lease expiry           | deleted when settled |
+| {p}:batch:{id}:result:{i}    | string | chunk result blob (jobs/blob.py)        | result TTL     |
+| {p}:batches:owner:{o}        | zset   | one owner's batch ids                   | pruned lazily  |
+| {p}:batches:active           | zset   | batch ids not yet settled (reconciler)  | none           |
 
 Job ids sort by creation time (hex microseconds first), so the indexes are
 lexicographic sorted sets with score 0 and pagination is ZRANGEBYLEX.
@@ -89,3 +95,22 @@ class Keys:
 
     def worker_pattern(self) -> str:
         return f"{self.prefix}:worker:*"
+
+    # ---- batches (jobs/batch_store.py)
+    def batch(self, batch_id: str) -> str:
+        return f"{self.prefix}:batch:{batch_id}"
+
+    def batch_chunks(self, batch_id: str) -> str:
+        return f"{self.prefix}:batch:{batch_id}:chunks"
+
+    def batch_leases(self, batch_id: str) -> str:
+        return f"{self.prefix}:batch:{batch_id}:leases"
+
+    def batch_result(self, batch_id: str, chunk: int) -> str:
+        return f"{self.prefix}:batch:{batch_id}:result:{chunk}"
+
+    def batches_owner(self, owner: str) -> str:
+        return f"{self.prefix}:batches:owner:{owner}"
+
+    def batches_active(self) -> str:
+        return f"{self.prefix}:batches:active"

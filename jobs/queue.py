@@ -11,6 +11,7 @@ from celery import Celery
 from jobs.settings import Settings
 
 SOLVE_TASK = "stifflane.solve"
+BATCH_TASK = "stifflane.batch_chunk"  # args: [batch_id, chunk index]; on settings.batch_queue
 
 
 def celery_config(settings: Settings) -> dict:
@@ -48,3 +49,7 @@ class Publisher:
 
     def publish(self, job_id: str) -> None:
         self.celery.send_task(SOLVE_TASK, args=[job_id], queue=self.settings.interactive_queue)
+
+    def publish_chunk(self, batch_id: str, chunk: int) -> None:
+        """One chunk of a batch, on the batch queue (workers also serve the interactive one)."""
+        self.celery.send_task(BATCH_TASK, args=[batch_id, int(chunk)], queue=self.settings.batch_queue)

@@ -41,5 +41,8 @@ def create_app(settings: Optional[Settings] = None, store: Optional[JobStore] = 
     app.register_blueprint(jobs_api.bp)
     app.register_blueprint(health.bp)
     app.register_blueprint(dashboard.bp)
+    from service import batches_api  # batch sweeps (docs/batches.md)
+
+    app.register_blueprint(batches_api.bp)
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(name)s %(levelname)s %(message)s")
     return app

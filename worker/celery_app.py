@@ -77,3 +77,53 @@ def warm() -> None:
     from engine.warmup import warm_up
 
     warm_up()
+
+
+# ---- batches (worker/run_batch.py): chunks arrive on settings.batch_queue ----
+from jobs.batch_store import BatchStore  # noqa: E402
+from jobs.queue import BATCH_TASK  # noqa: E402
+
+_batch_store: BatchStore | None = None
+_batch_reconciler = None
+
+
+def batch_store() -> BatchStore:
+    """One Redis client per process (created after fork)."""
+    global _batch_store
+    if _batch_store is None:
+        _batch_store = BatchStore.connect(settings)
+    return _batch_store
+
+
+def publish_chunk(batch_id: str, chunk: int) -> None:
+    app.send_task(BATCH_TASK, args=[batch_id, int(chunk)], queue=settings.batch_queue)
+
+
+@app.task(name=BATCH_TASK)
+def batch_chunk(batch_id, chunk):
+    if not isinstance(batch_id, str) or not is_job_id(batch_id) or not isinstance(chunk, int) or chunk < 0:
+        raise Reject(f"not a batch chunk: {batch_id!r}, {chunk!r}", requeue=False)
+    from worker.run_batch import run_chunk
+
+    return run_chunk(batch_store(), publish_chunk, batch_id, chunk)
+
+
+@signals.worker_process_init.connect
+def _fresh_batch_client(**_):
+    global _batch_store
+    _batch_store = None
+
+
+@signals.worker_ready.connect
+def _start_batch_reconciler(**_):
+    global _batch_reconciler
+    from worker.run_batch import BatchReconciler
+
+    _batch_reconciler = BatchReconciler(batch_store(), publish_chunk)
+    _batch_reconciler.start()
+
+
+@signals.worker_shutdown.connect
+def _stop_batch_reconciler(**_):
+    if _batch_reconciler is not None:
+        _batch_reconciler.stop()

@@ -1,0 +1,168 @@
+"""Batch and chunk state transitions as Redis Lua scripts: each change is one atomic step.
+
+A batch of ``total`` members is cut into ``n_chunks`` chunks of ``chunk_size``
+consecutive member indexes. Chunks are published in index order, at most a
+window of them in flight at a time (``published`` and ``inflight`` fields), so
+nothing per member or per chunk is written at submit. Chunk states live in the
+chunk hash: field ``s<i>`` absent = waiting, ``r`` running, ``d`` done (its
+result blob is written), ``c`` cancelled, ``x`` exhausted (its worker died too
+often; its members are reported as lost). ``a<i>`` counts attempts; the lease of
+a running chunk is its score in the lease zset. A running attempt is fenced by
+its attempt number, like jobs (jobs/lifecycle.py): a chunk result is written
+once, and its members are counted once.
+
+The batch is settled (``succeeded``, or ``cancelled`` when a cancel was asked
+for) when every chunk is done, cancelled or exhausted.
+
+KEYS for every script: batch hash, chunk hash, lease zset, active-batches zset,
+then extras.
+"""
+
+# Shared Lua helpers.
+_COMMON = """
+local function size(i)
+  local cs = tonumber(redis.call('HGET', KEYS[1], 'chunk_size'))
+  local total = tonumber(redis.call('HGET', KEYS[1], 'total'))
+  return math.min(cs, total - i * cs)
+end
+local function close_chunk(i, state, counter, count, was_published)
+  redis.call('HSET', KEYS[2], 's' .. i, state)
+  redis.call('ZREM', KEYS[3], tostring(i))
+  redis.call('HINCRBY', KEYS[1], 'finished_chunks', 1)
+  if was_published then redis.call('HINCRBY', KEYS[1], 'inflight', -1) end
+  if count > 0 then redis.call('HINCRBY', KEYS[1], counter, count) end
+end
+local function settle(id, now, ttl)
+  local fin = tonumber(redis.call('HGET', KEYS[1], 'finished_chunks'))
+  if fin < tonumber(redis.call('HGET', KEYS[1], 'n_chunks')) then return 0 end
+  local state = 'succeeded'
+  if redis.call('HGET', KEYS[1], 'cancel') == '1' then state = 'cancelled' end
+  redis.call('HSET', KEYS[1], 'state', state, 'finished', now)
+  if not redis.call('HGET', KEYS[1], 'started') then redis.call('HSET', KEYS[1], 'started', now) end
+  redis.call('ZREM', KEYS[4], id)
+  redis.call('EXPIRE', KEYS[1], ttl)
+  redis.call('EXPIRE', KEYS[2], ttl)
+  redis.call('DEL', KEYS[3])
+  return 1
+end
+"""
+
+# ARGV: id, chunk, now, lease_seconds, max_attempts, ttl
+# Returns {status, attempt}: claimed | running | done | cancelled | exhausted | missing.
+CLAIM = _COMMON + """
+local id, i, now = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3])
+local state = redis.call('HGET', KEYS[1], 'state')
+if not state then return {'missing', 0} end
+local cs = redis.call('HGET', KEYS[2], 's' .. i)
+local names = {d='done', c='cancelled', x='exhausted'}
+if names[cs or ''] then return {names[cs], 0} end
+if cs == 'r' and tonumber(redis.call('ZSCORE', KEYS[3], tostring(i)) or '0') >= now then
+  return {'running', 0}
+end
+redis.call('HINCRBY', KEYS[1], 'rev', 1)
+if redis.call('HGET', KEYS[1], 'cancel') == '1' then
+  close_chunk(i, 'c', 'cancelled', size(i), true)
+  settle(id, now, tonumber(ARGV[6]))
+  return {'cancelled', 0}
+end
+local attempt = redis.call('HINCRBY', KEYS[2], 'a' .. i, 1)
+if attempt > tonumber(ARGV[5]) then
+  close_chunk(i, 'x', 'lost', size(i), true)
+  settle(id, now, tonumber(ARGV[6]))
+  return {'exhausted', attempt}
+end
+redis.call('HSET', KEYS[2], 's' .. i, 'r')
+redis.call('ZADD', KEYS[3], now + tonumber(ARGV[4]), tostring(i))
+if state == 'queued' then redis.call('HSET', KEYS[1], 'state', 'running', 'started', now) end
+return {'claimed', attempt}
+"""
+
+# ARGV: chunk, attempt, now, lease_seconds. Returns -1 when fenced out, else the cancel flag.
+HEARTBEAT = """
+local i = ARGV[1]
+if redis.call('HGET', KEYS[2], 's' .. i) ~= 'r' then return -1 end
+if redis.call('HGET', KEYS[2], 'a' .. i) ~= ARGV[2] then return -1 end
+redis.call('ZADD', KEYS[3], tonumber(ARGV[3]) + tonumber(ARGV[4]), i)
+return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
+"""
+
+# KEYS[5]: the chunk's result key.
+# ARGV: id, chunk, attempt, now, n_ok, n_failed, n_cancelled, ttl, blob
+# Returns 0 when fenced out, 1 when written, 2 when written and the batch is now settled.
+FINISH = _COMMON + """
+local id, i, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[4]), tonumber(ARGV[8])
+if redis.call('HGET', KEYS[2], 's' .. i) ~= 'r' then return 0 end
+if redis.call('HGET', KEYS[2], 'a' .. i) ~= ARGV[3] then return 0 end
+redis.call('SET', KEYS[5], ARGV[9], 'EX', ttl)
+close_chunk(i, 'd', 'done', tonumber(ARGV[5]), true)
+redis.call('HINCRBY', KEYS[1], 'failed', tonumber(ARGV[6]))
+redis.call('HINCRBY', KEYS[1], 'cancelled', tonumber(ARGV[7]))
+redis.call('HINCRBY', KEYS[1], 'writes', 1)  -- evidence for tests: one write per chunk
+redis.call('HINCRBY', KEYS[1], 'rev', 1)
+return 1 + settle(id, now, ttl)
+"""
+
+# ARGV: max_inflight. Returns the chunk indexes to publish now (the caller publishes them).
+NEXT = """
+local state = redis.call('HGET', KEYS[1], 'state')
+if state ~= 'queued' and state ~= 'running' then return {} end
+if redis.call('HGET', KEYS[1], 'cancel') == '1' then return {} end
+local n = tonumber(redis.call('HGET', KEYS[1], 'n_chunks'))
+local published = tonumber(redis.call('HGET', KEYS[1], 'published'))
+local inflight = tonumber(redis.call('HGET', KEYS[1], 'inflight'))
+local out = {}
+while inflight < tonumber(ARGV[1]) and published < n do
+  table.insert(out, published)
+  published = published + 1
+  inflight = inflight + 1
+end
+redis.call('HSET', KEYS[1], 'published', published, 'inflight', inflight)
+return out
+"""
+
+# ARGV: id, now, ttl. Cancels every chunk that has not started; running ones stop at
+# their next member. Returns the batch state after the call.
+CANCEL = _COMMON + """
+local id, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3])
+local state = redis.call('HGET', KEYS[1], 'state')
+if not state then return 'missing' end
+if state ~= 'queued' and state ~= 'running' then return state end
+if redis.call('HGET', KEYS[1], 'cancel') == '1' then return 'cancelling' end
+redis.call('HSET', KEYS[1], 'cancel', '1')
+redis.call('HINCRBY', KEYS[1], 'rev', 1)
+local n = tonumber(redis.call('HGET', KEYS[1], 'n_chunks'))
+local published = tonumber(redis.call('HGET', KEYS[1], 'published'))
+for i = 0, published - 1 do
+  if not redis.call('HGET', KEYS[2], 's' .. i) then close_chunk(i, 'c', 'cancelled', size(i), true) end
+end
+if published < n then  -- never published: settle them in bulk
+  local cs = tonumber(redis.call('HGET', KEYS[1], 'chunk_size'))
+  local total = tonumber(redis.call('HGET', KEYS[1], 'total'))
+  redis.call('HINCRBY', KEYS[1], 'cancelled', total - published * cs)
+  redis.call('HINCRBY', KEYS[1], 'finished_chunks', n - published)
+  redis.call('HSET', KEYS[1], 'published', n, 'unpublished_from', published)
+end
+if settle(id, now, ttl) == 1 then return 'cancelled' end
+return 'cancelling'
+"""
+
+# ARGV: id, now, ttl. Running chunks whose lease expired go back to waiting (their
+# indexes are returned for republication), or to cancelled when a cancel was asked for.
+REQUEUE = _COMMON + """
+local id, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3])
+local expired = redis.call('ZRANGEBYSCORE', KEYS[3], '-inf', '(' .. now)
+local out = {}
+for _, member in ipairs(expired) do
+  local i = tonumber(member)
+  redis.call('HINCRBY', KEYS[1], 'rev', 1)
+  if redis.call('HGET', KEYS[1], 'cancel') == '1' then
+    close_chunk(i, 'c', 'cancelled', size(i), true)
+  else
+    redis.call('HDEL', KEYS[2], 's' .. i)
+    redis.call('ZREM', KEYS[3], member)
+    table.insert(out, i)
+  end
+end
+settle(id, now, ttl)
+return out
+"""
