@@ -1,12 +1,25 @@
-"""``stifflane``: start the stack, or one part of it.
+"""``stifflane``: start the stack, or one part of it; submit and follow jobs.
 
+Stack:
     stifflane up        embedded Redis + one worker + API and dashboard, then the demo job
     stifflane redis     only the embedded Redis (foreground)
     stifflane api       only the API and dashboard (gunicorn)
     stifflane worker    only a worker (Celery, one process per core by default)
     stifflane warm      load or compile the engine's kernels once (done by 'up' and 'worker')
 
-Exit codes: 0 success, 1 a part failed to start, 2 bad arguments, 130 interrupted.
+Jobs (over the API; --server URL or $STIFFLANE_URL, --key or $STIFFLANE_KEY):
+    stifflane submit SPEC [--wait] [-o FILE]   submit a job spec, optionally wait and save the result
+    stifflane watch ID                         follow a job with a progress bar
+    stifflane result ID [-o FILE]              fetch a result (CSV, JSON or .npz)
+    stifflane report ID                        the stiffness report as tables
+    stifflane list / cancel ID                 list your jobs / cancel one
+    stifflane validate SPEC                    check a spec locally, without a server
+    stifflane keys create|list|revoke          API keys (operator; talks to Redis)
+
+Run 'stifflane COMMAND --help' for options and examples.
+Exit codes: 0 success, 1 a part failed to start or a job failed, 2 bad arguments, 3 invalid spec,
+4 other API error, 5 server unreachable, 6 key missing or refused, 7 timed out, 130 interrupted
+(details in docs/cli.md).
 """
 from __future__ import annotations
 
@@ -245,6 +258,14 @@ def parser() -> argparse.ArgumentParser:
     w.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
     w.set_defaults(func=cmd_worker)
     sub.add_parser("warm", help="load or compile the engine kernels").set_defaults(func=cmd_warm)
+    from cli import jobs_cmds, keys, report, validate
+    from cli.common import add_global_connection_args
+
+    add_global_connection_args(ap)
+    jobs_cmds.register(sub)
+    report.register(sub)
+    validate.register(sub)
+    keys.register(sub)
     return ap
 
 

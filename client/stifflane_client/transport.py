@@ -55,7 +55,7 @@ class Transport:
             try:
                 resp = self.session.request(method, url, **kwargs)
             except (requests.ConnectionError, requests.Timeout) as e:
-                if not safe or attempt > self.retries:
+                if not safe or attempt > min(self.retries, 3):  # a down server: fail within seconds
                     raise ServiceUnavailable(f"cannot reach {self.url}: {e}") from e
                 self.sleep(retry_delay(attempt, None))
                 continue

@@ -1,0 +1,93 @@
+"""``stifflane report``: a job's stiffness report as tables in the terminal."""
+from __future__ import annotations
+
+import json
+
+from cli.common import OK, add_connection_args, command, make_client
+
+
+def _num(v) -> str:
+    if v is None:
+        return "-"
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        return str(v)
+    if isinstance(v, int) or float(v).is_integer() and abs(v) < 1e12:
+        return f"{int(v):,}"
+    return f"{v:.4g}"
+
+
+def table(rows: list[list], header: list[str] | None = None) -> str:
+    """Plain aligned columns; numbers right-aligned."""
+    cells = [[_num(c) if not isinstance(c, str) else c for c in r] for r in rows]
+    if header:
+        cells.insert(0, header)
+    if not cells:
+        return ""
+    widths = [max(len(r[i]) for r in cells) for i in range(len(cells[0]))]
+    numeric = [all(not isinstance(r[i], str) for r in rows) for i in range(len(widths))] if rows else []
+    out = []
+    for k, r in enumerate(cells):
+        out.append("  ".join(c.rjust(w) if numeric and numeric[i] and not (header and k == 0) else c.ljust(w)
+                             for i, (c, w) in enumerate(zip(r, widths))).rstrip())
+        if header and k == 0:
+            out.append("  ".join("-" * w for w in widths))
+    return "\n".join(out)
+
+
+def format_report(result: dict) -> str:
+    """The stiffness report of a result JSON as readable text."""
+    rep = result.get("report") or {}
+    parts = [f"outcome: {result.get('outcome', '-')}: {result.get('message', '')}"]
+    counters = [("accepted steps", rep.get("accepted_steps")), ("rejected steps", rep.get("rejected_steps")),
+                ("rhs evaluations", rep.get("rhs_evaluations")),
+                ("Jacobian evaluations", rep.get("jacobian_evaluations")),
+                ("LU factorisations", rep.get("lu_factorizations")),
+                ("Newton iterations", rep.get("newton_iterations")),
+                ("Newton failures", rep.get("newton_failures")), ("events found", rep.get("events_found")),
+                ("method switches", rep.get("switch_count")),
+                ("explicit steps needed (estimate)", rep.get("explicit_steps_needed")),
+                ("conservation drift (max, relative)", rep.get("conservation_drift")),
+                ("t reached", rep.get("t_reached")), ("solver seconds", rep.get("solve_seconds"))]
+    parts.append("\nWork\n" + table([[k, v] for k, v in counters]))
+    per, secs = rep.get("steps_per_method") or {}, rep.get("seconds_per_method") or {}
+    if per:
+        parts.append("\nMethods\n" + table([[m, per.get(m, 0), secs.get(m)] for m in per],
+                                           ["method", "steps", "seconds"]))
+    switches = rep.get("switches") or []
+    if switches:
+        rows = [[s.get("t"), s.get("from", ""), s.get("to", ""), s.get("h"), s.get("rho"),
+                 s.get("explicit_step", s.get("h_stability")), s.get("reason", "")] for s in switches]
+        parts.append("\nMethod switches\n" + table(rows, ["t", "from", "to", "h", "rho", "explicit step",
+                                                          "reason"]))
+    samples = rep.get("stiffness_samples") or []
+    if samples:
+        rows = [[s.get("t"), s.get("spectral_radius"), s.get("stiffness_ratio"), s.get("explicit_step")]
+                for s in samples]
+        parts.append("\nStiffness along the run\n" + table(rows, ["t", "spectral radius", "stiffness ratio",
+                                                                  "explicit step"]))
+    for w in rep.get("warnings") or []:
+        parts.append(f"warning: {w}")
+    if result.get("caution"):
+        parts.append("\n" + result["caution"])
+    return "\n".join(parts)
+
+
+def cmd_report(args) -> int:
+    client = make_client(args)
+    body = client.http.request("GET", f"/v1/jobs/{args.job_id}/result").json()
+    if args.json:
+        print(json.dumps(body.get("report") or {}, indent=2))
+    else:
+        print(format_report(body))
+    return OK
+
+
+def register(sub) -> None:
+    p = sub.add_parser("report", help="show a job's stiffness report as tables",
+                       description="Show the solver's report of a succeeded job: work counters, "
+                                   "steps per method, method switches and stiffness samples.")
+    p.add_argument("job_id")
+    p.add_argument("--json", action="store_true", help="print the report as JSON instead")
+    add_connection_args(p)
+    command(p, cmd_report, """  stifflane report 0661a...e7b
+  stifflane report 0661a...e7b --json > report.json""")
