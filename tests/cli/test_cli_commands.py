@@ -1,0 +1,136 @@
+"""The command line: every command documented, local validation, job commands on the live stack."""
+import csv
+import json
+
+import numpy as np
+import pytest
+
+from cli import common
+from cli.main import main, parser
+from cli.report import format_report
+from tests.conftest import example_path
+
+DEMO = str(example_path("jobs", "lakeside_demo.json"))
+JOB_COMMANDS = ["submit", "watch", "result", "list", "cancel", "report", "validate"]
+
+
+@pytest.mark.parametrize("name", JOB_COMMANDS)
+def test_every_job_command_has_help_with_examples_and_exit_codes(name, capsys):
+    with pytest.raises(SystemExit) as info:
+        main([name, "--help"])
+    assert info.value.code == 0
+    out = capsys.readouterr().out
+    assert "examples:" in out and f"stifflane {name}" in out and "exit codes:" in out
+
+
+def test_the_stack_commands_are_still_there():
+    names = set(parser()._subparsers._group_actions[0].choices)
+    assert {"up", "api", "worker", "redis", "warm", "keys"} <= names
+
+
+def test_validate_accepts_the_demo_locally(capsys):
+    assert main(["validate", DEMO]) == common.OK
+    assert "valid" in capsys.readouterr().out
+
+
+def test_validate_reports_problems_by_pointer_with_exit_code_3(tmp_path, capsys):
+    spec = json.loads(open(DEMO).read())
+    spec["model"]["ddt"]["H2"] = "kLa * (H2_sat - H2x)"
+    spec["span"] = [5, 1]
+    bad = tmp_path / "bad.json"
+    bad.write_text(json.dumps(spec))
+    assert main(["validate", str(bad)]) == common.INVALID_SPEC
+    out = capsys.readouterr().out
+    assert "/model/ddt/H2: position 16: unknown name 'H2x'" in out
+    assert "/span: t_end must be greater than t_start" in out
+
+
+def test_validate_refuses_non_json_and_missing_files(tmp_path):
+    nan = tmp_path / "nan.json"
+    nan.write_text('{"span": [0, NaN]}')
+    assert main(["validate", str(nan)]) == common.INVALID_SPEC
+    assert main(["validate", str(tmp_path / "missing.json")]) == common.USAGE
+
+
+def test_the_report_reads_as_tables():
+    result = {"outcome": "succeeded", "message": "integrated to the end of the span", "report": {
+        "accepted_steps": 120, "rejected_steps": 3, "rhs_evaluations": 900, "steps_per_method": {"dopri5": 20, "radau5": 100},
+        "seconds_per_method": {"dopri5": 0.01, "radau5": 0.2},
+        "switches": [{"t": 0.5, "from": "dopri5", "to": "radau5", "h": 1e-3, "rho": 3.2e4,
+                      "explicit_step": 1.0e-4, "reason": "stiffness_detected"}]}}
+    text = format_report(result)
+    assert "accepted steps" in text and "120" in text
+    assert "Method switches" in text and "stiffness_detected" in text
+    lines = text.splitlines()
+    header = next(i for i, line in enumerate(lines) if line.startswith("t ") and "reason" in line)
+    assert set(lines[header + 1].replace(" ", "")) == {"-"}
+
+
+def test_an_unreachable_server_exits_5(capsys):
+    assert main(["--server", "http://127.0.0.1:9", "list"]) == common.UNREACHABLE
+    assert "stifflane up" in capsys.readouterr().err
+
+
+@pytest.mark.e2e
+def test_submit_wait_save_report_list_and_result(stack, tmp_path, capsys):
+    out = tmp_path / "demo.csv"
+    assert main(["submit", DEMO, "--server", stack.base, "--wait", "-q", "-o", str(out)]) == common.OK
+    job_id = capsys.readouterr().out.strip()
+    rows = list(csv.reader(out.open()))
+    assert rows[0] == ["t", "S", "H2", "P", "Byp", "T", "k2", "r1", "r2", "feed", "heat"] and len(rows) == 122
+    assert main(["report", job_id, "--server", stack.base]) == common.OK
+    assert "accepted steps" in capsys.readouterr().out
+    assert main(["list", "--server", stack.base, "--limit", "5"]) == common.OK
+    assert job_id in capsys.readouterr().out
+    npz = tmp_path / "demo.npz"
+    assert main(["result", job_id, "--server", stack.base, "-o", str(npz)]) == common.OK
+    with np.load(npz) as z:
+        np.testing.assert_array_equal(z["t"], np.array([float(r[0]) for r in rows[1:]]))
+
+
+@pytest.mark.e2e
+def test_exit_codes_for_invalid_specs_missing_jobs_and_failed_jobs(stack, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("STIFFLANE_URL", stack.base)
+    spec = {"model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}}, "span": [0, 1000],
+            "method": "dopri5", "limits": {"max_steps": 5}}
+    path = tmp_path / "short.json"
+    path.write_text(json.dumps(spec))
+    assert main(["submit", str(path), "--wait", "-q"]) == common.JOB_NOT_SUCCEEDED
+    path.write_text(json.dumps(spec | {"span": [1, 0]}))
+    assert main(["submit", str(path)]) == common.INVALID_SPEC
+    assert main(["watch", "0" * 28, "-q"]) == common.API_ERROR
+    assert "no job" in capsys.readouterr().err
+
+
+@pytest.mark.e2e
+def test_cancel_a_running_job(stack, tmp_path, capsys, monkeypatch):
+    monkeypatch.setenv("STIFFLANE_URL", stack.base)
+    spec = {"label": "cli long run", "model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}},
+            "span": [0, 1e7], "output": {"count": 3}, "tolerance": {"rtol": 1e-12, "atol": 1e-14},
+            "method": "dopri5", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120}}
+    path = tmp_path / "long.json"
+    path.write_text(json.dumps(spec))
+    assert main(["submit", str(path)]) == common.OK
+    job_id = capsys.readouterr().out.strip()
+    assert main(["cancel", job_id]) == common.OK
+    assert main(["watch", job_id, "-q", "--timeout", "120"]) == common.JOB_NOT_SUCCEEDED
+
+
+def test_keys_are_created_listed_and_revoked_in_redis(redis_server, monkeypatch, capsys):
+    from jobs import accounts
+    from jobs.settings import Settings
+    from jobs.store import JobStore
+
+    monkeypatch.setenv("REDIS_URL", redis_server.url)
+    monkeypatch.setenv("STIFFLANE_KEY_PREFIX", "clikeys")
+    assert main(["keys", "create", "alice", "--label", "laptop"]) == common.OK
+    key = capsys.readouterr().out.strip()
+    store = JobStore.connect(Settings.from_env())
+    principal = accounts.authenticate(store.r, store.keys, key)
+    assert principal.owner == "alice" and principal.role == "user"
+    assert main(["keys", "list"]) == common.OK
+    listing = capsys.readouterr().out
+    assert principal.key_id in listing and "alice" in listing and key not in listing
+    assert main(["keys", "revoke", principal.key_id]) == common.OK
+    assert accounts.authenticate(store.r, store.keys, key) is None
+    assert main(["keys", "revoke", principal.key_id]) == 4
