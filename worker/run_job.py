@@ -94,7 +94,10 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         tol, limits = spec["tolerance"], spec["limits"]
         options = SolverOptions(method=spec["method"], rtol=tol["rtol"],
                                 atol=atol_vector(tol["atol"], prepared.state_names),
-                                max_steps=limits["max_steps"], max_wall_seconds=limits["max_wall_seconds"],
+                                max_steps=limits["max_steps"],
+                                # end inside the integrator, with diagnostics, before Celery's soft limit
+                                max_wall_seconds=min(limits["max_wall_seconds"],
+                                                     max(store.settings.soft_time_limit - 30, 1)),
                                 nonnegative=spec["nonnegative"])
         sol = integrate(prepared.kernel, p, y0, tuple(spec["span"]), times, options,
                         monitor=beat.monitor, conservation=prepared.conservation)
