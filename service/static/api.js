@@ -47,7 +47,8 @@
 
   function duration(seconds) {
     if (seconds == null || !isFinite(seconds)) return '—';
-    if (seconds < 1) return (seconds * 1000).toFixed(0) + ' ms';
+    if (seconds < 1e-3) return (seconds * 1e6).toFixed(0) + ' µs';
+    if (seconds < 1) return (seconds * 1000).toFixed(seconds < 0.01 ? 1 : 0) + ' ms';
     if (seconds < 60) return seconds.toFixed(1) + ' s';
     const m = Math.floor(seconds / 60), s = Math.round(seconds % 60);
     if (m < 60) return m + ' min ' + s + ' s';

@@ -131,7 +131,8 @@
     const series = [{ label: 'spectral radius', values: samples.map(s => s.spectral_radius), points: true }];
     if (samples.some(s => s.stiffness_ratio != null))
       series.push({ label: 'stiffness ratio', values: samples.map(s => s.stiffness_ratio), points: true, color: '#8a4fbf' });
-    charts.stiff = P.lineChart(el, { x: samples.map(s => s.t), series, ylog: true, height: 240, xlabel: 't' });
+    charts.stiff = P.lineChart(el, { x: samples.map(s => s.t), series, xlog: view.tx === 'log', ylog: true,
+      height: 240, xlabel: 't' });
   }
 
   // Drift of each conservation law c·y(t) relative to its start, scaled like the engine's report.
@@ -151,7 +152,8 @@
       for (let i = 0; i < n; i++) values.push(Math.abs(dot(i) - c0) / scale);
       return { label: law.label || 'law ' + (k + 1), values, color: P.PALETTE[(k + 2) % P.PALETTE.length] };
     });
-    charts.drift = P.lineChart(el, { x: result.times, series, ylog: true, height: 240, xlabel: 't', ylabel: 'relative drift' });
+    charts.drift = P.lineChart(el, { x: result.times, series, xlog: view.tx === 'log', ylog: true, height: 240,
+      xlabel: 't', ylabel: 'relative drift' });
   }
 
   function drawAll() { drawTrajectories(); drawSteps(); drawStiffness(); drawDrift(); }
@@ -202,7 +204,8 @@
       seg.querySelectorAll('button').forEach(b => b.onclick = () => {
         view[axis] = b.dataset.v; paint();
         if (!result) return;
-        axis === 'sx' ? drawSteps() : drawTrajectories();
+        if (axis === 'sx') drawSteps();
+        else { drawTrajectories(); if (axis === 'tx') { drawStiffness(); drawDrift(); } }
       });
     });
     document.querySelectorAll('#downloads button').forEach(b => b.onclick = () =>
@@ -214,5 +217,6 @@
     };
   }
 
+  window.SLJob = { charts: () => charts, result: () => result };  // for tests and the console
   document.addEventListener('DOMContentLoaded', () => { setupControls(); poll(); loadSpec(); });
 })();

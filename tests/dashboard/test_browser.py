@@ -1,0 +1,116 @@
+"""The dashboard in a real browser on the live stack: submit, watch, plot, download.
+
+Screenshots of every page at laptop (1366x768) and wide (1920x1080) sizes are kept in
+tests/artifacts/dashboard/ (not committed).
+"""
+import csv
+import io
+import json
+
+import pytest
+
+from tests.conftest import example_path
+from tests.dashboard.browser import SIZES, Browser, require_browser
+
+pytestmark = pytest.mark.e2e
+DEMO = example_path("jobs", "lakeside_demo.json")
+
+
+@pytest.fixture(scope="module")
+def playwright():
+    sync_api = require_browser()
+    with sync_api.sync_playwright() as pw:
+        yield pw
+
+
+@pytest.fixture(params=list(SIZES))
+def browser(request, playwright):
+    b = Browser(playwright, request.param)
+    yield b
+    b.close()
+
+
+def submit_demo_from_the_page(b, base) -> str:
+    page = b.page
+    page.goto(base + "/submit")
+    page.click("#example")
+    page.wait_for_selector("#check-state:text-is('valid')", timeout=30_000)
+    page.click("#submit")
+    page.wait_for_url("**/jobs/*", timeout=30_000)
+    return page.url.rsplit("/", 1)[1]
+
+
+def test_submit_watch_plot_on_log_axes_and_download_csv(browser, stack):
+    page = browser.page
+    job_id = submit_demo_from_the_page(browser, stack.base)
+    page.wait_for_selector(".state.succeeded", timeout=180_000)
+    page.wait_for_selector("#traj .uplot", timeout=30_000)
+    page.click("[data-axis=tx] [data-v=log]")
+    page.click("[data-axis=ty] [data-v=log]")
+    distr = page.evaluate("() => { const c = SLJob.charts().traj; return [c.scales.x.distr, c.scales.y.distr]; }")
+    assert distr == [3, 3]  # uPlot's logarithmic distribution on both axes
+    assert page.evaluate("() => SLJob.charts().steps.scales.y.distr") == 3  # step sizes on a log axis
+    browser.shot("job")
+    with page.expect_download() as info:
+        page.click("#downloads [data-fmt=csv]")
+    rows = list(csv.reader(io.StringIO(open(info.value.path()).read())))
+    assert rows[0][:6] == ["t", "S", "H2", "P", "Byp", "T"] and len(rows) == 122
+    page.goto(stack.base + "/")
+    row = page.wait_for_selector(f"tr[data-id='{job_id}']")
+    assert "succeeded" in row.inner_text()
+    assert row.query_selector(".bar > i").get_attribute("style").replace(" ", "") == "width:100.0%"
+    browser.shot("list")
+    assert browser.errors == []
+
+
+def test_problems_are_marked_at_the_offending_line(browser, stack):
+    page = browser.page
+    page.goto(stack.base + "/submit")
+    page.click("#example")
+    page.wait_for_selector("#check-state:text-is('valid')", timeout=30_000)
+    browser.shot("submit")
+    text = DEMO.read_text().replace('"kLa * (H2_sat - H2)"', '"kLa * (H2_sat - H2x)"')
+    page.fill("#spec", text)
+    item = page.wait_for_selector("#problems li", timeout=30_000)
+    line = next(i for i, s in enumerate(text.splitlines(), 1) if "H2x" in s)
+    assert item.get_attribute("data-line") == str(line)
+    assert "unknown name 'H2x'" in item.inner_text()
+    assert page.inner_text(f"#gutter .err") == str(line)
+    assert page.is_disabled("#submit")
+    browser.shot("submit-error")
+    page.fill("#spec", '{"span": [0, 1],\n  "model": ')
+    page.wait_for_selector("#check-state:text-is('not valid JSON')")
+    assert browser.errors == []
+
+
+def test_json_pointers_map_to_lines_of_the_pasted_text(browser, stack):
+    page = browser.page
+    page.goto(stack.base + "/submit")
+    text = '{\n  "span": [0,\n    1],\n  "model": {"ddt": {\n    "a/b": "x + y"}}\n}'
+    lines = page.evaluate("""t => { const m = SLJson.locate(t); return [
+        SLJson.lineForPointer(t, m, '/span/1', ''), SLJson.lineForPointer(t, m, '/model/ddt/a~1b', 'position 4: x'),
+        SLJson.lineForPointer(t, m, '/model/states', 'missing'), SLJson.lineForPointer(t, m, '/', 'x')]; }""", text)
+    assert lines == [3, 5, 4, 1]
+
+
+def robertson_spec() -> dict:
+    model = json.loads(example_path("models", "robertson.json").read_text())
+    return {"label": "Robertson kinetics, automatic switching", "model": model, "span": [0, 1e5],
+            "output": {"count": 200, "spacing": "log"}, "tolerance": {"rtol": 1e-6, "atol": 1e-10},
+            "method": "auto"}
+
+
+def test_a_stiff_run_shows_its_switches_phases_and_conservation_drift(browser, stack):
+    job_id = stack.submit(robertson_spec())
+    assert stack.wait(job_id, timeout=180)["state"] == "succeeded"
+    page = browser.page
+    page.goto(f"{stack.base}/jobs/{job_id}")
+    page.wait_for_selector("#switches table", timeout=30_000)
+    first = page.inner_text("#switches tbody tr")
+    assert "dopri5" in first and "stiffness_detected" in first
+    assert page.is_visible("#drift .uplot") and page.is_visible("#stiff .uplot")
+    assert "phase" in page.inner_text("#method-legend")
+    page.click("[data-axis=tx] [data-v=log]")
+    page.click("[data-axis=sx] [data-v=log]")
+    browser.shot("job-stiff")
+    assert browser.errors == []
