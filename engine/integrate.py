@@ -15,7 +15,7 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from engine import driver, state as S, vm
+from engine import driver, sparse, state as S, vm
 from engine.report import build_report
 from engine.switching import N_POLICY, SwitchPolicy
 from engine.tableaux import DOPRI5, METHOD_NAMES, RADAU5, RODAS
@@ -97,7 +97,10 @@ class _Run:
             self.V[S.V_NNMASK] = np.broadcast_to(np.asarray(o.nonnegative, dtype=float), (n,))
         self.cont = np.zeros((5, n))
         implicit = o.method != "dopri5"
-        m = n if implicit else 0
+        self.sparse = implicit and sparse.wants_sparse(kernel)
+        self.pattern = sparse.Pattern(kernel) if self.sparse else None
+        self.sparse_lu = None
+        m = n if implicit and not self.sparse else 0
         self.J = np.zeros((m, m))
         self.jv = np.zeros(len(kernel.jac_rows))
         self.LU = np.zeros((m, m))
@@ -130,6 +133,8 @@ class _Run:
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
+        if self.sparse:  # large sparse Jacobian: Rodas with SuperLU (engine.sparse)
+            iw[S.I_PINNED] = iw[S.I_METHOD] = RODAS
         iw[S.I_MAX_STEPS] = o.max_steps
         iw[S.I_HIST_STRIDE] = 1
         iw[S.I_STEPS_IN_METHOD] = o.policy.min_steps  # no hysteresis for the first method
@@ -139,6 +144,9 @@ class _Run:
         iw[S.I_HAS_TIME] = int(bool((kernel.rhs_code[:, 0] == vm.TIME).any()))
 
     def advance(self, kernel, budget):
+        if self.sparse:
+            sparse.advance(kernel, self, self.pattern, budget)
+            return
         driver.advance(kernel, self.p, self.regs, self.y, self.atol, self.pol, self.fs,
                        self.iw, self.V, self.cont, self.J, self.jv, self.LU, self.piv,
                        self.LUc, self.pivc, self.cbuf, self.t_out, self.y_out, self.gv,
@@ -191,7 +199,7 @@ def integrate(
 
 
 def _loop(kernel, run, monitor, o, secs, started):
-    budget = 2000
+    budget = 4 if run.sparse else 2000
     last_beat = started
     iw, fs = run.iw, run.fs
     t0, t1 = fs[S.F_T0], fs[S.F_TEND]

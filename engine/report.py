@@ -97,11 +97,16 @@ def build_report(kernel, run, o, sol, conservation, secs, started) -> dict:
         "conservation_drift": (None if conservation is None
                                else _drift(conservation, run.y0, sol.y)),
         "warnings": [],
+        "sparse_linear_algebra": bool(run.sparse),
     }
     if o.diagnostics == "full":
         rep["step_history"] = _history(run)
         rep["stiffness_samples"] = stiffness.sample(kernel, run.p, sol.t, sol.y,
                                                     float(run.pol[P_BOUNDARY]))
         rep["warnings"] = _warnings(run, o, run.y0)
+    if run.sparse and o.method in ("auto", "radau5"):
+        rep["warnings"].append(f"large sparse system: method '{o.method}' ran as rodas "
+                               "with sparse LU (the sparse path has no Radau5 or "
+                               "switching yet)")
     rep["solve_seconds"] = time.perf_counter() - started
     return rep

@@ -131,3 +131,99 @@ def scipy_rhs(kernel, p):
         return J
 
     return f, jac
+
+
+class Prepared:
+    """kernel, p, y0 of a hand-built kernel (the fields tests use)."""
+
+    def __init__(self, kernel, p, y0):
+        self.kernel, self.p, self.y0 = kernel, p, y0
+        self.event_directions = np.zeros(0, dtype=np.int64)
+        self.event_terminal = np.zeros(0, dtype=bool)
+
+
+def brusselator_2d(N: int, alpha: float = 0.1) -> Prepared:
+    """2-D Brusselator on an N x N periodic grid (Hairer & Wanner II, sec. IV.10,
+    BRUSS-2D, here without the source term), hand-built for large sparse tests:
+
+        u' = 1 + u^2 v - 4.4 u + alpha N^2 (five-point Laplacian of u)
+        v' = 3.4 u - u^2 v     + alpha N^2 (five-point Laplacian of v)
+
+    States: all u (row-major), then all v. u0 = 22 y (1-y)^1.5, v0 = 27 x (1-x)^1.5.
+    """
+    assert N >= 3
+    M = N * N
+    c = alpha * N * N
+    consts = np.array([c, 1.0, 4.4, 3.4, 4.0, 2.0, -4.0 * c])
+    C, ONE, K44, K34, FOUR, TWO, M4C = range(2 * M, 2 * M + 7)
+    SQ, W, D, T, LAP = range(2 * M + 7, 2 * M + 12)
+    rhs = [(vm.STATE, k, k, 0, 0) for k in range(2 * M)]
+    rhs += [(vm.CONST, 2 * M + j, j, 0, 0) for j in range(7)]
+
+    def nb(i, j):
+        return [((i - 1) % N) * N + j, ((i + 1) % N) * N + j,
+                i * N + (j - 1) % N, i * N + (j + 1) % N]
+
+    for species in (0, 1):
+        for i in range(N):
+            for j in range(N):
+                k = i * N + j
+                u, v = k, M + k
+                own = u if species == 0 else v
+                rhs.append((vm.SQUARE, SQ, u, 0, 0))
+                rhs.append((vm.MUL, W, SQ, v, 0))            # u^2 v
+                if species == 0:
+                    rhs.append((vm.ADD, D, ONE, W, 0))
+                    rhs.append((vm.MUL, T, K44, u, 0))
+                    rhs.append((vm.SUB, D, D, T, 0))         # 1 + u^2 v - 4.4 u
+                else:
+                    rhs.append((vm.MUL, T, K34, u, 0))
+                    rhs.append((vm.SUB, D, T, W, 0))         # 3.4 u - u^2 v
+                a, b, cc, d = (x + species * M for x in nb(i, j))
+                rhs.append((vm.ADD, LAP, a, b, 0))
+                rhs.append((vm.ADD, LAP, LAP, cc, 0))
+                rhs.append((vm.ADD, LAP, LAP, d, 0))
+                rhs.append((vm.MUL, T, FOUR, own, 0))
+                rhs.append((vm.SUB, LAP, LAP, T, 0))
+                rhs.append((vm.MULADD, D, C, LAP, D))
+                rhs.append((vm.OUT, species * M + k, D, 0, 0))
+    # Jacobian, row-major sorted COO.
+    jac = [(vm.STATE, k, k, 0, 0) for k in range(2 * M)]
+    jac += [(vm.CONST, 2 * M + j, j, 0, 0) for j in range(7)]
+    rows, cols = [], []
+    X = 2 * M + 12
+    for species in (0, 1):
+        for i in range(N):
+            for j in range(N):
+                k = i * N + j
+                u, v = k, M + k
+                row = species * M + k
+                entries = {x + species * M: C for x in nb(i, j)}
+                # d/du and d/dv of the reaction terms, plus -4c on the diagonal
+                jac.append((vm.MUL, X, u, v, 0))
+                jac.append((vm.MUL, X, X, TWO, 0))          # 2 u v
+                jac.append((vm.SQUARE, X + 1, u, 0, 0))     # u^2
+                if species == 0:
+                    jac.append((vm.SUB, X + 2, X, K44, 0))
+                    jac.append((vm.ADD, X + 2, X + 2, M4C, 0))   # 2uv - 4.4 - 4c
+                    entries[u] = X + 2
+                    entries[v] = X + 1
+                else:
+                    jac.append((vm.SUB, X + 2, K34, X, 0))       # 3.4 - 2uv
+                    jac.append((vm.NEG, X + 3, X + 1, 0, 0))
+                    jac.append((vm.ADD, X + 3, X + 3, M4C, 0))   # -u^2 - 4c
+                    entries[u] = X + 2
+                    entries[v] = X + 3
+                for col in sorted(entries):
+                    jac.append((vm.OUT, len(rows), entries[col], 0, 0))
+                    rows.append(row)
+                    cols.append(col)
+    x = np.arange(N) / N
+    xx, yy = np.meshgrid(x, x, indexing="ij")
+    y0 = np.concatenate([(22 * yy * (1 - yy) ** 1.5).ravel(),
+                         (27 * xx * (1 - xx) ** 1.5).ravel()])
+    kern = vm.Kernel(n=2 * M, n_regs=X + 4, consts=consts, rhs_code=_code(rhs),
+                     jac_code=_code(jac), jac_rows=np.array(rows, dtype=np.int64),
+                     jac_cols=np.array(cols, dtype=np.int64), aux_code=vm.empty_code(),
+                     n_aux=0, event_code=vm.empty_code(), n_events=0)
+    return Prepared(kern, np.zeros(0), y0)

@@ -1,0 +1,158 @@
+"""Speed of the engine's integrators (a benchmark, not a test).
+
+Run: PYTHONPATH=. python bench/engine_speed.py [--quick]
+Prints per-solve times (median) at rtol 1e-6, atol 1e-10, one core, for the
+small stiff problems against SciPy odeint with numba-compiled rhs and Jacobian,
+Robertson solves per second with the kernel prepared once, auto vs pinned
+Dormand-Prince on non-stiff problems, and (if present) the sparse Brusselator.
+"""
+from __future__ import annotations
+
+import sys
+import time
+
+import numpy as np
+from numba import njit
+from scipy.integrate import odeint
+
+from engine.integrate import SolverOptions, integrate
+from tests.engine import kernels as K
+
+RTOL, ATOL = 1e-6, 1e-10
+
+
+@njit(cache=True)
+def rob_f(y, t):
+    return np.array([-0.04 * y[0] + 1e4 * y[1] * y[2],
+                     0.04 * y[0] - 1e4 * y[1] * y[2] - 3e7 * y[1] ** 2,
+                     3e7 * y[1] ** 2])
+
+
+@njit(cache=True)
+def rob_j(y, t):
+    return np.array([[-0.04, 1e4 * y[2], 1e4 * y[1]],
+                     [0.04, -1e4 * y[2] - 6e7 * y[1], -1e4 * y[1]],
+                     [0.0, 6e7 * y[1], 0.0]])
+
+
+@njit(cache=True)
+def vdp_f(y, t):
+    return np.array([y[1], 1000.0 * (1 - y[0] ** 2) * y[1] - y[0]])
+
+
+@njit(cache=True)
+def vdp_j(y, t):
+    return np.array([[0.0, 1.0], [-2000.0 * y[0] * y[1] - 1.0, 1000.0 * (1 - y[0] ** 2)]])
+
+
+@njit(cache=True)
+def hires_f(y, t):
+    return np.array([
+        -1.71 * y[0] + 0.43 * y[1] + 8.32 * y[2] + 0.0007,
+        1.71 * y[0] - 8.75 * y[1],
+        -10.03 * y[2] + 0.43 * y[3] + 0.035 * y[4],
+        8.32 * y[1] + 1.71 * y[2] - 1.12 * y[3],
+        -1.745 * y[4] + 0.43 * y[5] + 0.43 * y[6],
+        -280 * y[5] * y[7] + 0.69 * y[3] + 1.71 * y[4] - 0.43 * y[5] + 0.69 * y[6],
+        280 * y[5] * y[7] - 1.81 * y[6],
+        -280 * y[5] * y[7] + 1.81 * y[6]])
+
+
+@njit(cache=True)
+def hires_j(y, t):
+    J = np.zeros((8, 8))
+    J[0, 0], J[0, 1], J[0, 2] = -1.71, 0.43, 8.32
+    J[1, 0], J[1, 1] = 1.71, -8.75
+    J[2, 2], J[2, 3], J[2, 4] = -10.03, 0.43, 0.035
+    J[3, 1], J[3, 2], J[3, 3] = 8.32, 1.71, -1.12
+    J[4, 4], J[4, 5], J[4, 6] = -1.745, 0.43, 0.43
+    J[5, 3], J[5, 4], J[5, 5], J[5, 6], J[5, 7] = 0.69, 1.71, -0.43 - 280 * y[7], 0.69, -280 * y[5]
+    J[6, 5], J[6, 6], J[6, 7] = 280 * y[7], -1.81, 280 * y[5]
+    J[7, 5], J[7, 6], J[7, 7] = -280 * y[7], 1.81, -280 * y[5]
+    return J
+
+
+STIFF = [("robertson", K.ROBERTSON, 1e5, rob_f, rob_j),
+         ("hires", K.HIRES, K.HIRES_END, hires_f, hires_j),
+         ("van_der_pol", K.VAN_DER_POL, 3000.0, vdp_f, vdp_j)]
+
+
+def median_time(fn, repeat):
+    fn()
+    times = []
+    for _ in range(repeat):
+        t0 = time.perf_counter()
+        fn()
+        times.append(time.perf_counter() - t0)
+    return float(np.median(times))
+
+
+def stiff_table(repeat):
+    print(f"small stiff problems, rtol {RTOL:g}, atol {ATOL:g}: median ms per solve")
+    print(f"{'problem':12s} {'odeint':>8s} " + " ".join(f"{m:>8s}" for m in
+                                                     ("auto", "radau5", "rodas", "lean")))
+    for name, spec, t_end, f, j in STIFF:
+        m = K.model(spec)
+        t_out = np.array([0.0, t_end])
+        ref = median_time(lambda: odeint(f, m.y0, t_out, Dfun=j, rtol=RTOL, atol=ATOL,
+                                         mxstep=100000), repeat)
+        row = [ref]
+        for method, diag in (("auto", "full"), ("radau5", "full"), ("rodas", "full"),
+                             ("auto", "counts")):
+            o = SolverOptions(method=method, rtol=RTOL, atol=ATOL, diagnostics=diag)
+            row.append(median_time(lambda: integrate(m.kernel, m.p, m.y0, (0.0, t_end),
+                                                     t_out, o), repeat))
+        print(f"{name:12s} " + " ".join(f"{1e3 * v:8.3f}" for v in row)
+              + f"   odeint/auto = {row[0] / row[1]:.1f}x, odeint/lean = {row[0] / row[4]:.1f}x")
+
+
+def throughput(seconds=2.0):
+    m = K.model(K.ROBERTSON)
+    t_out = np.array([40.0])
+    for diag in ("counts", "full"):
+        o = SolverOptions(method="auto", rtol=RTOL, atol=ATOL, diagnostics=diag)
+        integrate(m.kernel, m.p, m.y0, (0.0, 40.0), t_out, o)
+        n, t0 = 0, time.perf_counter()
+        while time.perf_counter() - t0 < seconds:
+            integrate(m.kernel, m.p, m.y0, (0.0, 40.0), t_out, o)
+            n += 1
+        print(f"Robertson to t=40, auto, diagnostics={diag}: "
+              f"{n / (time.perf_counter() - t0):.0f} solves/s")
+
+
+def nonstiff(repeat):
+    print("non-stiff: auto vs pinned dopri5 (median ms)")
+    for name, spec, t_end in (("arenstorf", K.ARENSTORF, K.ARENSTORF_PERIOD),
+                              ("lorenz", K.LORENZ, 20.0)):
+        m = K.model(spec)
+        t_out = np.linspace(0, t_end, 101)
+        res = {}
+        for method in ("dopri5", "auto"):
+            o = SolverOptions(method=method, rtol=RTOL, atol=ATOL)
+            res[method] = median_time(lambda: integrate(m.kernel, m.p, m.y0, (0.0, t_end),
+                                                        t_out, o), repeat)
+        print(f"{name:10s} dopri5 {1e3 * res['dopri5']:.3f}  auto {1e3 * res['auto']:.3f}"
+              f"  ratio {res['auto'] / res['dopri5']:.2f}")
+
+
+def brusselator():
+    try:
+        from tests.engine.kernels import brusselator_2d
+    except ImportError:
+        print("brusselator: no sparse test model yet")
+        return
+    for N in (32,):
+        m = brusselator_2d(N)
+        o = SolverOptions(method="auto", rtol=RTOL, atol=ATOL)
+        t0 = time.perf_counter()
+        sol = integrate(m.kernel, m.p, m.y0, (0.0, 10.0), np.array([10.0]), o)
+        print(f"brusselator 2x{N}^2: {time.perf_counter() - t0:.3f} s, {sol.outcome}, "
+              f"{sol.report['accepted_steps']} steps")
+
+
+if __name__ == "__main__":
+    quick = "--quick" in sys.argv
+    stiff_table(5 if quick else 20)
+    throughput(1.0 if quick else 3.0)
+    nonstiff(5 if quick else 20)
+    brusselator()
