@@ -100,7 +100,10 @@ class JobSpecSchema(Schema):
     """Job spec v1."""
 
     label = fields.String(validate=validate.Length(max=200), metadata={"description": "free text shown in lists"})
-    model = ModelField(required=True)
+    model = ModelField(required=True, metadata={
+        "type": "object", "required": ["states"],
+        "description": "the model: states, parameters, derived, ddt, reactions, events "
+                       "(see docs/model-language.md)"})
     parameters = fields.Dict(keys=fields.String(), values=FiniteFloat(), load_default=dict,
                              metadata={"description": "overrides of the model's parameter values"})
     initial = fields.Dict(keys=fields.String(), values=FiniteFloat(), load_default=dict,
