@@ -14,6 +14,7 @@ Jobs (over the API; --server URL or $STIFFLANE_URL, --key or $STIFFLANE_KEY):
     stifflane report ID                        the stiffness report as tables
     stifflane list / cancel ID                 list your jobs / cancel one
     stifflane validate SPEC                    check a spec locally, without a server
+    stifflane batch submit|watch|table|stats|list|cancel   sweeps over parameters
     stifflane keys create|list|revoke          API keys (operator; talks to Redis)
 
 Run 'stifflane COMMAND --help' for options and examples.
@@ -258,13 +259,14 @@ def parser() -> argparse.ArgumentParser:
     w.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
     w.set_defaults(func=cmd_worker)
     sub.add_parser("warm", help="load or compile the engine kernels").set_defaults(func=cmd_warm)
-    from cli import jobs_cmds, keys, report, validate
+    from cli import batch_cmds, jobs_cmds, keys, report, validate
     from cli.common import add_global_connection_args
 
     add_global_connection_args(ap)
     jobs_cmds.register(sub)
     report.register(sub)
     validate.register(sub)
+    batch_cmds.register(sub)
     keys.register(sub)
     return ap
 

@@ -6,12 +6,13 @@
     job.wait(progress=True)
     res = job.result()                            # res.t, res.y, res["T"], res.to_dataframe()
 """
+from stifflane_client.batches import Batch, BatchTable
 from stifflane_client.client import Client, Job
 from stifflane_client.errors import (ApiError, AuthError, InvalidSpec, JobFailed, ServiceUnavailable,
                                      StifflaneError, WaitTimeout)
 from stifflane_client.results import Result
 from stifflane_client.spec import Model, job_spec, load_spec
 
-__all__ = ["Client", "Job", "Result", "Model", "job_spec", "load_spec", "ApiError", "AuthError",
+__all__ = ["Client", "Job", "Result", "Batch", "BatchTable", "Model", "job_spec", "load_spec", "ApiError", "AuthError",
            "InvalidSpec", "JobFailed", "ServiceUnavailable", "StifflaneError", "WaitTimeout"]
 __version__ = "0.1.0"

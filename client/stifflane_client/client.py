@@ -8,6 +8,7 @@ from typing import Iterator
 
 import requests
 
+from stifflane_client.batches import BatchesMixin
 from stifflane_client.errors import JobFailed, WaitTimeout
 from stifflane_client.progress import progress_bar
 from stifflane_client.results import Result
@@ -54,7 +55,7 @@ class Job:
         return self
 
 
-class Client:
+class Client(BatchesMixin):
     """``Client(url=None, key=None)``: url defaults to $STIFFLANE_URL or http://127.0.0.1:8750,
     key to $STIFFLANE_KEY (sent as ``Authorization: Bearer <key>``)."""
 
