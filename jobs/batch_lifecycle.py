@@ -7,7 +7,8 @@ nothing per member or per chunk is written at submit. Chunk states live in the
 chunk hash: field ``s<i>`` absent = waiting, ``r`` running, ``d`` done (its
 result blob is written), ``c`` cancelled, ``x`` exhausted (its worker died too
 often; its members are reported as lost). ``a<i>`` counts attempts; the lease of
-a running chunk is its score in the lease zset. A running attempt is fenced by
+a running chunk ``<i>`` is its score in the lease zset, where a published chunk not
+yet claimed waits as ``w<i>`` scored by the time it is due for republication. A running attempt is fenced by
 its attempt number, like jobs (jobs/lifecycle.py): a chunk result is written
 once, and its members are counted once.
 
@@ -27,7 +28,7 @@ local function size(i)
 end
 local function close_chunk(i, state, counter, count, was_published)
   redis.call('HSET', KEYS[2], 's' .. i, state)
-  redis.call('ZREM', KEYS[3], tostring(i))
+  redis.call('ZREM', KEYS[3], tostring(i), 'w' .. i)
   redis.call('HINCRBY', KEYS[1], 'finished_chunks', 1)
   if was_published then redis.call('HINCRBY', KEYS[1], 'inflight', -1) end
   if count > 0 then redis.call('HINCRBY', KEYS[1], counter, count) end
@@ -72,6 +73,7 @@ if attempt > tonumber(ARGV[5]) then
   return {'exhausted', attempt}
 end
 redis.call('HSET', KEYS[2], 's' .. i, 'r')
+redis.call('ZREM', KEYS[3], 'w' .. i)
 redis.call('ZADD', KEYS[3], now + tonumber(ARGV[4]), tostring(i))
 if state == 'queued' then redis.call('HSET', KEYS[1], 'state', 'running', 'started', now) end
 return {'claimed', attempt}
@@ -102,7 +104,8 @@ redis.call('HINCRBY', KEYS[1], 'rev', 1)
 return 1 + settle(id, now, ttl)
 """
 
-# ARGV: max_inflight. Returns the chunk indexes to publish now (the caller publishes them).
+# ARGV: max_inflight, now, stale_seconds. Returns the chunk indexes to publish now (the
+# caller publishes them); each gets a waiting entry 'w<i>' in the lease zset, due at now + stale.
 NEXT = """
 local state = redis.call('HGET', KEYS[1], 'state')
 if state ~= 'queued' and state ~= 'running' then return {} end
@@ -113,6 +116,7 @@ local inflight = tonumber(redis.call('HGET', KEYS[1], 'inflight'))
 local out = {}
 while inflight < tonumber(ARGV[1]) and published < n do
   table.insert(out, published)
+  redis.call('ZADD', KEYS[3], tonumber(ARGV[2]) + tonumber(ARGV[3]), 'w' .. published)
   published = published + 1
   inflight = inflight + 1
 end
@@ -146,21 +150,35 @@ if settle(id, now, ttl) == 1 then return 'cancelled' end
 return 'cancelling'
 """
 
-# ARGV: id, now, ttl. Running chunks whose lease expired go back to waiting (their
-# indexes are returned for republication), or to cancelled when a cancel was asked for.
+# ARGV: id, now, ttl, stale_seconds. Running chunks whose lease expired go back to waiting,
+# or to cancelled when a cancel was asked for. Waiting chunks not claimed within stale_seconds
+# of publication are published again: their message may sit unacknowledged in a dead
+# worker's prefetch until the broker's visibility timeout (a duplicate is harmless: claims
+# are fenced). Returns the chunk indexes to (re)publish.
 REQUEUE = _COMMON + """
-local id, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3])
-local expired = redis.call('ZRANGEBYSCORE', KEYS[3], '-inf', '(' .. now)
+local id, now, ttl, stale = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3]), tonumber(ARGV[4])
+local due = redis.call('ZRANGEBYSCORE', KEYS[3], '-inf', '(' .. now)
 local out = {}
-for _, member in ipairs(expired) do
-  local i = tonumber(member)
-  redis.call('HINCRBY', KEYS[1], 'rev', 1)
-  if redis.call('HGET', KEYS[1], 'cancel') == '1' then
-    close_chunk(i, 'c', 'cancelled', size(i), true)
+for _, member in ipairs(due) do
+  if string.sub(member, 1, 1) == 'w' then
+    local i = tonumber(string.sub(member, 2))
+    if redis.call('HGET', KEYS[2], 's' .. i) then
+      redis.call('ZREM', KEYS[3], member)
+    else
+      redis.call('ZADD', KEYS[3], now + stale, member)
+      table.insert(out, i)
+    end
   else
-    redis.call('HDEL', KEYS[2], 's' .. i)
-    redis.call('ZREM', KEYS[3], member)
-    table.insert(out, i)
+    local i = tonumber(member)
+    redis.call('HINCRBY', KEYS[1], 'rev', 1)
+    if redis.call('HGET', KEYS[1], 'cancel') == '1' then
+      close_chunk(i, 'c', 'cancelled', size(i), true)
+    else
+      redis.call('HDEL', KEYS[2], 's' .. i)
+      redis.call('ZREM', KEYS[3], member)
+      redis.call('ZADD', KEYS[3], now + stale, 'w' .. i)
+      table.insert(out, i)
+    end
   end
 end
 settle(id, now, ttl)

@@ -182,8 +182,9 @@ class BatchStore:
 
     def next_chunks(self, batch_id: str) -> list[int]:
         """Chunk indexes to publish now (keeps at most ``batch_chunks_in_flight`` in flight)."""
-        return [int(i) for i in self._next(keys=self._k(batch_id),
-                                           args=[self.settings.batch_chunks_in_flight])]
+        s = self.settings
+        return [int(i) for i in self._next(keys=self._k(batch_id), args=[
+            s.batch_chunks_in_flight, repr(time.time()), s.batch_stale_seconds])]
 
     def chunk_states(self, batch_id: str) -> dict[int, str]:
         """{chunk: state} for chunks that have one ('r', 'd', 'c', 'x'); absent = waiting."""
@@ -226,9 +227,10 @@ class BatchStore:
         return [_s(i) for i in self.r.zrange(self.keys.batches_active(), 0, -1)]
 
     def requeue_expired(self, batch_id: str) -> list[int]:
-        """Chunks whose worker died go back to waiting; returns their indexes to republish."""
+        """Chunks whose worker died, or whose message went missing, to (re)publish now."""
         if not self.r.exists(self.keys.batch(batch_id)):
             self.r.zrem(self.keys.batches_active(), batch_id)
             return []
         return [int(i) for i in self._requeue(keys=self._k(batch_id), args=[
-            batch_id, repr(time.time()), self.settings.result_ttl_seconds])]
+            batch_id, repr(time.time()), self.settings.result_ttl_seconds,
+            self.settings.batch_stale_seconds])]

@@ -39,6 +39,7 @@ class Settings:
     batch_max_chunks: int = 5_000        # larger chunks for larger batches beyond this
     batch_chunks_in_flight: int = 8      # published, unfinished chunks per batch
     max_batch_trajectory_values: int = 5_000_000
+    batch_stale_seconds: int = 60        # a published chunk unclaimed this long is published again
 
     @classmethod
     def from_env(cls) -> "Settings":

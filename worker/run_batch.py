@@ -222,6 +222,7 @@ class BatchReconciler:
     def tick(self) -> None:
         for batch_id in self.store.active_ids():
             for chunk in self.store.requeue_expired(batch_id):
-                log.warning("batch %s chunk %d lost its worker; requeued", batch_id, chunk)
+                log.warning("batch %s chunk %d lost its worker or its message; published again",
+                            batch_id, chunk)
                 self.publish(batch_id, chunk)
             _publish_next(self.store, self.publish, batch_id)

@@ -20,6 +20,7 @@ class Stack:
         tag = uuid.uuid4().hex[:8]
         self.env = dict(os.environ, REDIS_URL=redis_url, STIFFLANE_KEY_PREFIX=f"e{tag}",
                         STIFFLANE_INTERACTIVE_QUEUE=f"stifflane.e2e.{tag}", STIFFLANE_LEASE_SECONDS="3",
+                        STIFFLANE_BATCH_QUEUE=f"stifflane.e2e.{tag}.batches", STIFFLANE_BATCH_STALE_SECONDS="8",
                         STIFFLANE_AUTH_MODE="off",
                         PYTHONPATH=str(ROOT))
         self.port = free_port()
@@ -47,7 +48,8 @@ class Stack:
         raise RuntimeError("API did not start; see var/test-logs")
 
     def start_worker(self, concurrency: int = 1):
-        self.worker = self._spawn("worker", worker_command(concurrency, self.env["STIFFLANE_INTERACTIVE_QUEUE"]))
+        self.worker = self._spawn("worker", worker_command(
+            concurrency, self.env["STIFFLANE_INTERACTIVE_QUEUE"] + "," + self.env["STIFFLANE_BATCH_QUEUE"]))
         deadline = time.time() + 60
         while time.time() < deadline:  # ready once it has written its heartbeat
             if requests.get(self.base + "/v1/health", timeout=2).json()["workers"]:
