@@ -119,27 +119,31 @@ class JobSpecSchema(Schema):
 
     @validates_schema(skip_on_field_errors=False)
     def _consistent(self, data, **kwargs):
+        # Runs even when fields failed, so every input here may be partial or malformed.
         errors: dict = {}
         span = data.get("span")
+        if not (isinstance(span, list) and len(span) == 2):
+            span = None
         if span and span[1] <= span[0]:
             errors["span"] = ["t_end must be greater than t_start"]
-        out = data.get("output") or {}
-        if span and span[1] > span[0] and "times" in out:
+        out = data.get("output") if isinstance(data.get("output"), dict) else {}
+        if span and span[1] > span[0] and out.get("times"):
             if out["times"][0] < span[0] or out["times"][-1] > span[1]:
                 errors.setdefault("output", {})["times"] = [f"all output times must lie in the span {span}"]
         if span and out.get("first") is not None and out["first"] >= span[1] - span[0]:
             errors.setdefault("output", {})["first"] = ["must be smaller than the span's length"]
         model = data.get("model")
-        if model is not None:
-            states = set(model.get("states", {}))
-            params = set(model.get("parameters", {}))
-            for name in data.get("initial", {}):
+        if isinstance(model, dict):
+            states = set(model.get("states") or {}) if isinstance(model.get("states"), dict) else set()
+            params = set(model.get("parameters") or {}) if isinstance(model.get("parameters"), dict) else set()
+            for name in data.get("initial") or {}:
                 if name not in states:
                     errors.setdefault("initial", {})[name] = [f"'{name}' is not a state of the model"]
-            for name in data.get("parameters", {}):
+            for name in data.get("parameters") or {}:
                 if name not in params:
                     errors.setdefault("parameters", {})[name] = [f"'{name}' is not a parameter of the model"]
-            atol = (data.get("tolerance") or {}).get("atol")
+            tolerance = data.get("tolerance")
+            atol = tolerance.get("atol") if isinstance(tolerance, dict) else None
             if isinstance(atol, dict):
                 for name in atol:
                     if name != "*" and name not in states:
