@@ -1,5 +1,6 @@
 """The /v1 HTTP contract, through Flask's test client on a real Redis."""
 import json
+import re
 
 import pytest
 
@@ -156,7 +157,7 @@ def test_health_reports_redis_and_queues(client):
 def test_the_openapi_document_describes_every_route(client, app):
     doc = client.get("/v1/openapi.json").get_json()
     assert doc["openapi"].startswith("3.1")
-    routes = {r.rule.replace("<job_id>", "{job_id}") for r in app.url_map.iter_rules()
+    routes = {re.sub(r"<(?:\w+:)?(\w+)>", r"{\1}", r.rule) for r in app.url_map.iter_rules()
               if r.rule.startswith("/v1/") and r.rule != "/v1/openapi.json"}
     assert routes <= set(doc["paths"])
     assert "JobSpec" in doc["components"]["schemas"]
