@@ -8,6 +8,10 @@ redelivered message or a stale worker can never write a second result.
 KEYS for every script that moves a job: job hash, the five global state indexes
 in the order of ``keys.STATES`` (queued, running, succeeded, failed, cancelled),
 the owner's five state indexes in the same order, then extras.
+
+Index sorted sets carry a TTL refreshed on every add (``__INDEX_TTL__``, filled in
+by the store from the result TTL), so no key the project writes lives forever
+(API keys excepted, by design).
 """
 
 # Shared Lua helper: move a job id between state indexes.
@@ -15,9 +19,11 @@ _MOVE = """
 local ORDER = {queued=2, running=3, succeeded=4, failed=5, cancelled=6}
 local function move(id, from, to)
   redis.call('ZREM', KEYS[ORDER[from]], id)
-  redis.call('ZADD', KEYS[ORDER[to]], 0, id)
   redis.call('ZREM', KEYS[ORDER[from] + 5], id)
-  redis.call('ZADD', KEYS[ORDER[to] + 5], 0, id)
+  for _, k in ipairs({KEYS[ORDER[to]], KEYS[ORDER[to] + 5]}) do
+    redis.call('ZADD', k, 0, id)
+    redis.call('EXPIRE', k, __INDEX_TTL__)  -- every key has a TTL; entries outlive no record
+  end
 end
 """
 

@@ -79,11 +79,16 @@ class JobStore:
         self.r = client
         self.settings = settings
         self.keys = Keys(settings.key_prefix)
-        self._claim = client.register_script(lifecycle.CLAIM)
-        self._heartbeat = client.register_script(lifecycle.HEARTBEAT)
-        self._finish = client.register_script(lifecycle.FINISH)
-        self._cancel = client.register_script(lifecycle.CANCEL)
-        self._requeue = client.register_script(lifecycle.REQUEUE)
+        self.index_ttl = settings.result_ttl_seconds + 2 * 24 * 3600
+
+        def script(text: str):
+            return client.register_script(text.replace("__INDEX_TTL__", str(self.index_ttl)))
+
+        self._claim = script(lifecycle.CLAIM)
+        self._heartbeat = script(lifecycle.HEARTBEAT)
+        self._finish = script(lifecycle.FINISH)
+        self._cancel = script(lifecycle.CANCEL)
+        self._requeue = script(lifecycle.REQUEUE)
 
     @classmethod
     def connect(cls, settings: Settings, **client_options) -> "JobStore":
@@ -123,9 +128,10 @@ class JobStore:
                                 "attempt": 0, "title": title, "method": method, "owner": owner,
                                 "cancel": "0", "spec": spec_blob})
         pipe.expire(key, self.settings.result_ttl_seconds)
-        pipe.zadd(self.keys.index_state("queued"), {job_id: 0})
-        pipe.zadd(self.keys.owner_all(owner), {job_id: 0})
-        pipe.zadd(self.keys.owner_state(owner, "queued"), {job_id: 0})
+        for index in (self.keys.index_state("queued"), self.keys.owner_all(owner),
+                      self.keys.owner_state(owner, "queued")):
+            pipe.zadd(index, {job_id: 0})
+            pipe.expire(index, self.index_ttl)
         pipe.execute()
         return self.get(job_id)
 

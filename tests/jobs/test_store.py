@@ -137,3 +137,12 @@ def test_owners_see_only_their_own_jobs(store):
     assert store.get(theirs.id, owner="ana") is None and store.get(mine.id, owner="ana") is not None
     assert [r.id for r in store.list("ben", None, 10, None)[0]] == [theirs.id]
     assert store.active_count("ana") == 1
+
+
+def test_every_key_a_job_writes_has_a_ttl(store):
+    # Common practice for Redis as a store: TTLs everywhere, noeviction as the policy.
+    (rec,) = make(store)
+    _, attempt = store.claim(rec.id)
+    store.finish(rec.id, attempt, "succeeded", "succeeded", "ok", {}, b"blob")
+    keys = list(store.r.scan_iter(match=store.keys.prefix + ":*"))
+    assert keys and all(store.r.ttl(k) > 0 for k in keys), [k for k in keys if store.r.ttl(k) <= 0]
