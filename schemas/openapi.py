@@ -75,4 +75,52 @@ def build_openapi(version: str) -> dict:
     spec.path(path="/v1/health", operations={
         "get": {"summary": "Redis, workers and queue depths", "operationId": "health",
                 "responses": {"200": _json("Health", "healthy"), "503": _json("Health", "degraded")}}})
+    _batch_paths(spec, errors)
     return spec.to_dict()
+
+
+_BATCH_ID = {"name": "batch_id", "in": "path", "required": True,
+             "schema": {"type": "string", "pattern": "^[0-9a-f]{28}$"}}
+
+
+def _batch_paths(spec: APISpec, errors: dict) -> None:
+    """/v1/batches: sweeps over a base job (docs/batches.md)."""
+    from schemas.batch import BatchSpecSchema
+
+    spec.components.schema("BatchSpec", schema=BatchSpecSchema)
+    obj = {"application/json": {"schema": {"type": "object"}}}
+    table = {"application/json": {"schema": {"type": "object"}}, "text/csv": {"schema": {"type": "string"}},
+             "application/x-npz": {"schema": {"type": "string", "format": "binary"}}}
+    spec.path(path="/v1/batches", operations={
+        "post": {"summary": "Submit a batch: a base job and its variations", "operationId": "createBatch",
+                 "requestBody": {"required": True, "content": {"application/json": {"schema": "BatchSpec"}}},
+                 "responses": {"202": {"description": "accepted; poll the Location", "content": obj},
+                               **{k: errors[k] for k in ("400", "413", "415", "422", "503")}}},
+        "get": {"summary": "List your batches, newest first", "operationId": "listBatches",
+                "parameters": [{"name": "limit", "in": "query", "schema": {"type": "integer", "minimum": 1,
+                                                                           "maximum": 200}},
+                               {"name": "cursor", "in": "query", "schema": {"type": "string"}}],
+                "responses": {"200": {"description": "a page of batches", "content": obj}, "400": errors["400"]}}})
+    spec.path(path="/v1/batches/{batch_id}", operations={
+        "get": {"summary": "Read a batch: state, progress (counts, rate, time left)", "operationId": "getBatch",
+                "parameters": [_BATCH_ID],
+                "responses": {"200": {"description": "the batch", "content": obj}, "404": errors["404"]}}})
+    spec.path(path="/v1/batches/{batch_id}/table", operations={
+        "get": {"summary": "The summary table (partial while running)", "operationId": "getBatchTable",
+                "parameters": [_BATCH_ID, {"name": "format", "in": "query",
+                                           "schema": {"type": "string", "enum": ["json", "csv", "npz"]}}],
+                "responses": {"200": {"description": "one row per finished member", "content": table},
+                              **{k: errors[k] for k in ("404", "406")}}}})
+    spec.path(path="/v1/batches/{batch_id}/statistics", operations={
+        "get": {"summary": "Mean, std, min, max and 5/50/95 % quantiles of each summary",
+                "operationId": "getBatchStatistics", "parameters": [_BATCH_ID],
+                "responses": {"200": {"description": "statistics", "content": obj}, "404": errors["404"]}}})
+    spec.path(path="/v1/batches/{batch_id}/spec", operations={
+        "get": {"summary": "The batch spec as submitted", "operationId": "getBatchSpec", "parameters": [_BATCH_ID],
+                "responses": {"200": {"description": "the spec", "content": {
+                    "application/json": {"schema": "BatchSpec"}}}, "404": errors["404"]}}})
+    spec.path(path="/v1/batches/{batch_id}/cancel", operations={
+        "post": {"summary": "Cancel a batch: waiting chunks never start, running ones stop at the next member",
+                 "operationId": "cancelBatch", "parameters": [_BATCH_ID],
+                 "responses": {"202": {"description": "cancellation recorded", "content": obj},
+                               **{k: errors[k] for k in ("404", "409")}}}})
