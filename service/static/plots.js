@@ -79,6 +79,15 @@
     }] } };
   }
 
+  // A linear range with a margin, so points on the extremes are not cut by the plot's edge.
+  function padded(frac) {
+    return (u, lo, hi) => {
+      if (lo == null || hi == null) return [0, 1];
+      const span = hi - lo || Math.abs(hi) || 1;
+      return [lo - frac * span, hi + frac * span];
+    };
+  }
+
   function fmtTick(v) {
     if (v == null) return '';
     const a = Math.abs(v);
@@ -93,7 +102,7 @@
     const width = Math.max(300, el.clientWidth || 600);
     const uopts = {
       width, height: opts.height || 320,
-      scales: { x: { time: false, distr: opts.xlog ? 3 : 1, log: 10 },
+      scales: { x: { time: false, distr: opts.xlog ? 3 : 1, log: 10, range: opts.pad && !opts.xlog ? padded(opts.pad) : undefined },
                 y: { distr: opts.ylog ? 3 : 1, log: 10 } },
       axes: [
         { label: opts.xlabel || 't', values: (u, vals) => vals.map(fmtTick), size: 44 },
@@ -101,7 +110,8 @@
       ],
       series: [{ label: opts.xlabel || 't', value: (u, v) => fmtTick(v) }].concat(opts.series.map((s, i) => ({
         label: s.label, stroke: s.color || PALETTE[i % PALETTE.length], width: s.width || 1.6,
-        dash: s.dash, spanGaps: false, points: { show: s.points || false, size: 4 },
+        dash: s.dash, spanGaps: false, points: { show: s.points || false, size: s.scatter ? 6 : 4, fill: s.scatter ? (s.color || PALETTE[i % PALETTE.length]) : undefined },
+        paths: s.scatter ? () => null : undefined,
         value: (u, v) => fmtTick(v),
       }))),
       legend: { show: opts.legend !== false },
@@ -111,6 +121,28 @@
     const chart = new uPlot(uopts, data, el);
     const ro = new ResizeObserver(() => {
       const w = Math.max(300, el.clientWidth);
+      if (Math.abs(w - chart.width) > 2) chart.setSize({ width: w, height: uopts.height });
+    });
+    ro.observe(el);
+    chart._ro = ro;
+    return chart;
+  }
+
+  // A histogram: bars at the bin centres.
+  function barChart(el, opts) {
+    el.innerHTML = '';
+    const width = Math.max(240, el.clientWidth || 300);
+    const uopts = {
+      width, height: opts.height || 180, legend: { show: false }, cursor: { show: false },
+      scales: { x: { time: false, range: (u, lo, hi) => { const pad = (opts.x.length > 1 ? opts.x[1] - opts.x[0] : 1) / 2; return [lo - pad, hi + pad]; } },
+                y: { range: (u, lo, hi) => [0, Math.max(1, hi) * 1.08] } },
+      axes: [{ values: (u, vals) => vals.map(fmtTick), size: 34 }, { size: 40 }],
+      series: [{}, { label: opts.label || 'count', fill: (opts.color || PALETTE[0]) + '99', stroke: opts.color || PALETTE[0],
+                     width: 1, paths: uPlot.paths.bars({ size: [0.92, 80] }), points: { show: false } }],
+    };
+    const chart = new uPlot(uopts, [opts.x, opts.y], el);
+    const ro = new ResizeObserver(() => {
+      const w = Math.max(240, el.clientWidth);
       if (Math.abs(w - chart.width) > 2) chart.setSize({ width: w, height: uopts.height });
     });
     ro.observe(el);
@@ -137,5 +169,5 @@
     return out;
   }
 
-  window.SLPlots = { lineChart, destroy, methodBands, PALETTE, METHOD_COLORS, prepare, thin };
+  window.SLPlots = { lineChart, barChart, destroy, methodBands, PALETTE, METHOD_COLORS, prepare, thin };
 })();

@@ -134,3 +134,21 @@ def test_keys_are_created_listed_and_revoked_in_redis(redis_server, monkeypatch,
     assert main(["keys", "revoke", principal.key_id]) == common.OK
     assert accounts.authenticate(store.r, store.keys, key) is None
     assert main(["keys", "revoke", principal.key_id]) == 4
+
+
+@pytest.mark.e2e
+def test_batch_submit_wait_table_and_stats(stack, tmp_path, capsys, monkeypatch):
+    from tests.client.batch_specs import BLOWUP
+
+    monkeypatch.setenv("STIFFLANE_URL", stack.base)
+    spec = tmp_path / "sweep.json"
+    spec.write_text(json.dumps(BLOWUP))
+    out = tmp_path / "sweep.csv"
+    assert main(["batch", "submit", str(spec), "--wait", "-q", "-o", str(out)]) == common.OK
+    batch_id = capsys.readouterr().out.strip()
+    rows = list(csv.DictReader(out.open()))
+    assert [r["outcome"] == "succeeded" for r in rows] == [True, True, True, False]
+    assert main(["batch", "stats", batch_id]) == common.OK
+    assert "final_y" in capsys.readouterr().out
+    assert main(["batch", "list"]) == common.OK
+    assert batch_id in capsys.readouterr().out

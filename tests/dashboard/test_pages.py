@@ -8,7 +8,7 @@ import pytest
 from tests.conftest import example_path
 
 STATIC = Path(__file__).resolve().parents[2] / "service" / "static"
-PAGES = ["/", "/submit", "/jobs/0123456789abcdef0123456789ab"]
+PAGES = ["/", "/submit", "/jobs/0123456789abcdef0123456789ab", "/batches", "/batches/0123456789abcdef0123456789ab"]
 
 
 @pytest.mark.parametrize("path", PAGES)
