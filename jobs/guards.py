@@ -28,7 +28,7 @@ def hit_rate(client: redis.Redis, keys: Keys, owner: str, limit: int, window: in
     now = time.time()
     slot = int(now // window)
     key = keys.rate(owner, slot)
-    pipe = client.pipeline(transaction=True)
+    pipe = client.pipeline(transaction=False)  # one round trip; no MULTI/EXEC on the hot path
     pipe.incr(key)
     pipe.expire(key, 2 * window)
     count, _ = pipe.execute()

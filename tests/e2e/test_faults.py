@@ -94,7 +94,9 @@ def test_a_runaway_explicit_solve_ends_failed_with_diagnostics(faulty):
     view = faulty.wait(job_id, timeout=60)
     assert view["state"] == "failed" and view["outcome"] == "time_limit"
     assert view["digest"]["accepted_steps"] > 1000  # partial diagnostics kept
-    assert time.time() - started < 3 + 5 + 5  # limit + 5 s, plus queueing slack
+    took = time.time() - started
+    print(f"figure: runaway job with a 3 s limit ended {took:.1f} s after submission")
+    assert took < 3 + 5 + 5  # limit + 5 s, plus queueing slack
     assert faulty.wait(faulty.submit(linear_spec()))["state"] == "succeeded"  # worker healthy
 
 
@@ -109,7 +111,9 @@ def test_kill_9_of_a_worker_child_mid_job_loses_nothing(faulty):
         view = faulty.wait(job_id, timeout=60)
         assert view["state"] == "succeeded", view
         assert int(record(faulty, job_id)["writes"]) == 1
-        assert time.time() - killed < 10 + 2 * 2.0  # recovery <= 10 s, plus the rerun itself
+        took = time.time() - killed
+        print(f"figure: child kill trial {trial}: job done {took:.1f} s after the kill")
+        assert took < 10 + 2 * 2.0  # recovery <= 10 s, plus the rerun itself
 
 
 def test_kill_9_of_the_whole_worker_with_jobs_in_every_state(faulty):
@@ -139,4 +143,6 @@ def test_kill_9_of_redis_with_aof_loses_no_accepted_job(faulty):
         for job_id in [running, *queued]:
             assert faulty.wait(job_id, timeout=60)["state"] == "succeeded"
             assert int(record(faulty, job_id)["writes"]) == 1
-        assert time.time() - back < 30 + 2 * 1.5
+        took = time.time() - back
+        print(f"figure: redis kill trial {trial}: all jobs done {took:.1f} s after Redis restarted")
+        assert took < 30 + 2 * 1.5

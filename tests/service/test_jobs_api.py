@@ -172,3 +172,17 @@ def test_a_spec_can_be_checked_without_submitting(client):
     r = client.post("/v1/spec-checks", json=bad)
     assert r.status_code == 422 and "/model/ddt/a" in pointers(r)
     assert client.get("/v1/jobs").get_json()["items"] == []
+
+
+def redis_calls(store) -> int:
+    stats = store.r.info("commandstats")
+    return sum(v["calls"] for k, v in stats.items() if k != "cmdstat_info")
+
+
+def test_an_unchanged_poll_costs_at_most_three_redis_commands(client, store):
+    job = post(client, DECAY).get_json()
+    etag = client.get(f"/v1/jobs/{job['id']}").headers["ETag"]
+    before = redis_calls(store)
+    assert client.get(f"/v1/jobs/{job['id']}", headers={"If-None-Match": etag}).status_code == 304
+    # HMGET rev+owner, then INCR+EXPIRE of the owner's rate window (one round trip)
+    assert redis_calls(store) - before <= 3
