@@ -49,6 +49,11 @@ def new_job_id(now: float | None = None) -> str:
     return f"{us:014x}{os.urandom(7).hex()}"
 
 
+def created_at(job_id: str) -> float:
+    """Creation time (epoch seconds) encoded in a job id."""
+    return int(job_id[:14], 16) / 1e6
+
+
 def is_job_id(text: str) -> bool:
     return bool(_ID_RE.match(text))
 

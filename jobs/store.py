@@ -15,7 +15,7 @@ from typing import Optional
 import redis
 
 from jobs import lifecycle
-from jobs.keys import STATES, TERMINAL, Keys, new_job_id
+from jobs.keys import STATES, TERMINAL, Keys, created_at, new_job_id
 from jobs.settings import Settings
 
 # Fields read for a job view (everything but the spec, which can be large).
@@ -210,6 +210,11 @@ class JobStore:
         for s in STATES:
             pipe.zcard(self.keys.index_state(s))
         return dict(zip(STATES, pipe.execute()))
+
+    def oldest_queued_age(self) -> Optional[float]:
+        """Seconds the oldest queued job has waited (None when nothing is queued)."""
+        first = self.r.zrangebylex(self.keys.index_state("queued"), "-", "+", start=0, num=1)
+        return time.time() - created_at(_s(first[0])) if first else None
 
     # ---- worker side ----------------------------------------------------
     def claim(self, job_id: str) -> tuple[str, int]:

@@ -11,6 +11,7 @@ from schemas.openapi import build_openapi
 from schemas.views import HealthSchema
 
 bp = Blueprint("health", __name__, url_prefix="/v1")
+STALL_SECONDS = 120
 
 
 @bp.get("/health")
@@ -26,9 +27,17 @@ def health():
         body["queues"] = {"broker:" + ctx.settings.interactive_queue: ctx.store.r.llen(ctx.settings.interactive_queue),
                           **{f"jobs:{k}": v for k, v in ctx.store.queue_counts().items()
                              if k in ("queued", "running")}}
+        waited = ctx.store.oldest_queued_age()
+        body["queues"]["oldest_queued_seconds"] = int(waited or 0)
         if not body["workers"]:
             body["status"] = "degraded"
             body["detail"] = "no worker has reported in the last 30 s; queued jobs will wait"
+        elif waited is not None and waited > STALL_SECONDS and body["queues"]["jobs:running"] == 0:
+            # Workers alive but nothing running while jobs wait: a consumer that stopped
+            # consuming (e.g. after a broker reconnect). Restart the workers.
+            body["status"] = "degraded"
+            body["detail"] = (f"workers report in but none is running a job while the oldest queued job "
+                              f"has waited {int(waited)} s; restart the workers")
     except RedisError as e:
         body.update(status="degraded", redis={"reachable": False, "error": str(e)[:200]})
         status = 503

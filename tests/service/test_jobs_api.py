@@ -186,3 +186,14 @@ def test_an_unchanged_poll_costs_at_most_three_redis_commands(client, store):
     assert client.get(f"/v1/jobs/{job['id']}", headers={"If-None-Match": etag}).status_code == 304
     # HMGET rev+owner, then INCR+EXPIRE of the owner's rate window (one round trip)
     assert redis_calls(store) - before <= 3
+
+
+def test_health_notices_workers_that_stopped_consuming(client, store, monkeypatch):
+    from service import health
+
+    store.worker_beat("w1", {"name": "w1"})
+    post(client, DECAY)
+    assert client.get("/v1/health").get_json()["status"] == "ok"
+    monkeypatch.setattr(health, "STALL_SECONDS", -1)  # as if the job had waited too long
+    body = client.get("/v1/health").get_json()
+    assert body["status"] == "degraded" and "restart the workers" in body["detail"]
