@@ -27,6 +27,9 @@
       (job.state === 'queued' ? 'queued, waiting for a worker' : 'integrating') + ` — ${pct.toFixed(1)}% of the span`;
     document.getElementById('elapsed').textContent = job.started_at ? 'elapsed ' + duration(elapsed(job)) : '';
     const out = document.getElementById('outcome');
+    if (!active && job.state !== 'succeeded') {
+      document.querySelector('#waiting .empty').textContent = 'This run ended without a result: ' + (job.message || job.state);
+    }
     if (!active) {
       const cls = job.state === 'succeeded' ? 'ok' : 'bad';
       out.innerHTML = `<div class="notice ${cls}"><b>${esc(job.outcome || job.state)}</b> — ${esc(job.message || '')}</div>`;
@@ -60,6 +63,9 @@
     const resp = await api(`/v1/jobs/${encodeURIComponent(jobId)}/result`);
     if (!resp.ok) return;
     result = await resp.json();
+    document.getElementById('waiting').classList.add('hidden');
+    document.getElementById('result-area').classList.remove('hidden');
+    document.querySelectorAll('.result-only').forEach(e => e.classList.remove('hidden'));
     buildPicker();
     drawAll();
     showReport();
@@ -133,6 +139,13 @@
       series.push({ label: 'stiffness ratio', values: samples.map(s => s.stiffness_ratio), points: true, color: '#8a4fbf' });
     charts.stiff = P.lineChart(el, { x: samples.map(s => s.t), series, xlog: view.tx === 'log', ylog: true,
       height: 240, xlabel: 't' });
+    const withEig = samples.filter(s => s.dominant_eigenvalues && s.dominant_eigenvalues.length);
+    document.getElementById('eig-box').classList.toggle('hidden', !withEig.length);
+    const lam = ([re, im]) => num(re, 3) + (im ? (im > 0 ? ' + ' : ' − ') + num(Math.abs(im), 3) + 'i' : '');
+    document.getElementById('eig').innerHTML = '<table class="data compact"><thead><tr><th class="num">t</th>' +
+      '<th>largest in magnitude</th><th class="num">explicit step</th></tr></thead><tbody>' +
+      withEig.map(s => `<tr><td class="num">${num(s.t)}</td><td class="mono">${s.dominant_eigenvalues.map(lam).join(', ')}</td>` +
+        `<td class="num">${num(s.explicit_step)}</td></tr>`).join('') + '</tbody></table>';
   }
 
   // Drift of each conservation law c·y(t) relative to its start, scaled like the engine's report.

@@ -114,3 +114,24 @@ def test_a_stiff_run_shows_its_switches_phases_and_conservation_drift(browser, s
     page.click("[data-axis=sx] [data-v=log]")
     browser.shot("job-stiff")
     assert browser.errors == []
+
+
+LONG = {"label": "long oscillator (dashboard)", "model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}},
+        "span": [0.0, 1.0e7], "output": {"count": 3}, "tolerance": {"rtol": 1e-12, "atol": 1e-14},
+        "method": "dopri5", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120}}
+
+
+def test_a_running_job_shows_live_progress_and_can_be_cancelled_from_its_page(browser, stack):
+    job_id = stack.submit(LONG)
+    stack.wait(job_id, states=("running",), timeout=60)
+    page = browser.page
+    page.goto(f"{stack.base}/jobs/{job_id}")
+    page.wait_for_function("() => parseFloat(document.getElementById('progress-bar').style.width) > 0",
+                           timeout=60_000)
+    assert page.is_visible("#progress-card") and page.is_visible("#cancel")
+    browser.shot("job-running")
+    page.click("#cancel")
+    page.wait_for_selector(".state.cancelled", timeout=60_000)
+    assert not page.is_visible("#progress-card") and not page.is_visible("#cancel")
+    assert "cancelled" in page.inner_text("#outcome")
+    assert browser.errors == []
