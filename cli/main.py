@@ -236,6 +236,25 @@ def cmd_up(args) -> int:
                 p.kill()
 
 
+STACK_EXAMPLES = {
+    "up": "  stifflane up                      # Redis, a worker, API and dashboard on :8750, then the demo\n"
+          "  stifflane up --port 9000 --no-demo\n"
+          "  REDIS_URL=redis://db:6379/0 stifflane up   # use an existing Redis",
+    "redis": "  stifflane redis --port 6390 --data var/redis",
+    "api": "  stifflane api --host 0.0.0.0 --port 8750 --workers 4",
+    "worker": "  stifflane worker --concurrency 2",
+    "warm": "  stifflane warm",
+}
+STACK_EXIT_CODES = "exit codes: 0 success, 1 a part failed to start or stopped, 2 bad arguments, 130 interrupted"
+
+
+def _stack_examples(sub) -> None:
+    for name, text in STACK_EXAMPLES.items():
+        p = sub.choices[name]
+        p.formatter_class = argparse.RawDescriptionHelpFormatter
+        p.epilog = f"examples:\n{text}\n\n{STACK_EXIT_CODES}"
+
+
 def parser() -> argparse.ArgumentParser:
     ap = argparse.ArgumentParser(prog="stifflane", description=__doc__,
                                  formatter_class=argparse.RawDescriptionHelpFormatter)
@@ -259,6 +278,7 @@ def parser() -> argparse.ArgumentParser:
     w.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
     w.set_defaults(func=cmd_worker)
     sub.add_parser("warm", help="load or compile the engine kernels").set_defaults(func=cmd_warm)
+    _stack_examples(sub)
     from cli import batch_cmds, jobs_cmds, keys, report, validate
     from cli.common import add_global_connection_args
 

@@ -11,7 +11,8 @@ from cli.report import format_report
 from tests.conftest import example_path
 
 DEMO = str(example_path("jobs", "lakeside_demo.json"))
-JOB_COMMANDS = ["submit", "watch", "result", "list", "cancel", "report", "validate"]
+JOB_COMMANDS = ["submit", "watch", "result", "list", "cancel", "report", "validate",
+                "up", "redis", "api", "worker", "warm"]
 
 
 @pytest.mark.parametrize("name", JOB_COMMANDS)
@@ -21,6 +22,16 @@ def test_every_job_command_has_help_with_examples_and_exit_codes(name, capsys):
     assert info.value.code == 0
     out = capsys.readouterr().out
     assert "examples:" in out and f"stifflane {name}" in out and "exit codes:" in out
+
+
+@pytest.mark.parametrize("name", [["batch", c] for c in ("submit", "watch", "table", "stats", "list", "cancel")]
+                         + [["keys", c] for c in ("create", "list", "revoke")])
+def test_every_batch_and_keys_command_has_help_with_examples(name, capsys):
+    with pytest.raises(SystemExit) as info:
+        main([*name, "--help"])
+    assert info.value.code == 0
+    out = capsys.readouterr().out
+    assert "examples:" in out and f"stifflane {' '.join(name)}" in out and "exit codes:" in out
 
 
 def test_the_stack_commands_are_still_there():
