@@ -4,12 +4,15 @@
   const KEY = 'stifflane.key';  // sessionStorage only: the key lives for this browser session
 
   function key() { return sessionStorage.getItem(KEY) || ''; }
+  let pausedUntil = 0;  // after a 429, background polls wait for the server's Retry-After
+  function paused() { return Date.now() < pausedUntil; }
 
   async function api(path, opts = {}) {
     const headers = Object.assign({}, opts.headers || {});
     if (key()) headers['Authorization'] = 'Bearer ' + key();
     if (opts.json !== undefined) { headers['Content-Type'] = 'application/json'; opts.body = JSON.stringify(opts.json); }
     const resp = await fetch(path, { method: opts.method || 'GET', headers, body: opts.body, cache: 'no-store' });
+    if (resp.status === 429) pausedUntil = Date.now() + 1000 * (Number(resp.headers.get('Retry-After')) || 5);
     if (resp.status === 401) { sessionStorage.setItem(KEY + '.needed', '1'); signIn(key() ? 'The key was refused (unknown or revoked).' : 'This server needs an API key.'); }
     return resp;
   }
@@ -92,6 +95,6 @@
     }
   }
 
-  window.SL = { api, download, esc, num, duration, elapsed, stateBadge, problemText, key };
+  window.SL = { api, paused, download, esc, num, duration, elapsed, stateBadge, problemText, key };
   document.addEventListener('DOMContentLoaded', setupHeader);
 })();

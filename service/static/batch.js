@@ -27,7 +27,9 @@
   }
 
   async function poll() {
+    if (window.SL.paused()) { setTimeout(poll, 1000); return; }
     const resp = await api('/v1/batches/' + encodeURIComponent(batchId));
+    if (resp.status === 429 || resp.status >= 500) { setTimeout(poll, 2000); return; }
     if (!resp.ok) { $('notices').innerHTML = `<div class="notice bad">${esc(await problemText(resp))}</div>`; return; }
     batch = await resp.json();
     showBatch();

@@ -45,6 +45,7 @@
   }
 
   async function poll() {
+    if (window.SL.paused()) { setTimeout(poll, 1000); return; }
     const headers = etag ? { 'If-None-Match': etag } : {};
     const resp = await api('/v1/jobs/' + encodeURIComponent(jobId), { headers });
     if (resp.status === 200) {
@@ -52,6 +53,9 @@
       job = await resp.json();
       showJob();
       if (job.state === 'succeeded' && !result) await loadResult();
+    } else if (resp.status === 429 || resp.status >= 500) {
+      setTimeout(poll, 2000);  // busy or restarting: try again
+      return;
     } else if (resp.status !== 304) {
       document.getElementById('outcome').innerHTML = `<div class="notice bad">${esc(await problemText(resp))}</div>`;
       return;

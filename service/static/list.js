@@ -5,6 +5,7 @@
   const { api, esc, num, duration, elapsed, stateBadge } = window.SL;
   const jobs = new Map();      // id -> view
   const etags = new Map();     // id -> ETag
+  const polledAt = new Map();  // id -> time of the last poll
   let order = [];              // ids, newest first
   let cursor = null;
   const ACTIVE = new Set(['queued', 'running']);
@@ -62,7 +63,11 @@
   }
 
   async function pollActive() {
-    const active = order.map(id => jobs.get(id)).filter(j => j && ACTIVE.has(j.state)).slice(0, 20);
+    if (window.SL.paused()) return;
+    // a few jobs per tick, oldest poll first: stays far below the per-key rate limit
+    const active = order.map(id => jobs.get(id)).filter(j => j && ACTIVE.has(j.state))
+      .sort((a, b) => (polledAt.get(a.id) || 0) - (polledAt.get(b.id) || 0)).slice(0, 5);
+    active.forEach(j => polledAt.set(j.id, Date.now()));
     let changed = false;
     await Promise.all(active.map(async j => {
       const headers = etags.has(j.id) ? { 'If-None-Match': etags.get(j.id) } : {};
@@ -81,7 +86,7 @@
     document.getElementById('f-text').oninput = render;
     document.getElementById('more').onclick = () => loadPage(cursor);
     loadPage(null, true);
-    setInterval(pollActive, 1000);
-    setInterval(() => loadPage(null, false), 5000);  // pick up new jobs
+    setInterval(pollActive, 1500);
+    setInterval(() => { if (!window.SL.paused()) loadPage(null, false); }, 5000);  // pick up new jobs
   });
 })();
