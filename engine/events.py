@@ -10,7 +10,7 @@ import numpy as np
 from numba import njit
 
 from engine import dopri5, radau5, rodas, vm
-from engine.tableaux import DOPRI5, RADAU5
+from engine.tableaux import BDF, DOPRI5, RADAU5
 
 
 @njit(cache=True, nogil=True)
@@ -21,6 +21,16 @@ def dense_eval(method, cont, t_old, h, t, out):
         dopri5.dense(cont, x, out)
     elif method == RADAU5:
         radau5.dense(cont, x, out)
+    elif method == BDF:
+        # Newton form through the last points (engine.bdf): rows beyond the
+        # current order are zero.
+        t_new = t_old + h
+        out[:] = cont[0]
+        prod = 1.0
+        for j in range(1, cont.shape[0]):
+            prod *= (t - (t_new - h * (j - 1))) / (h * j)
+            for i in range(out.shape[0]):
+                out[i] += cont[j, i] * prod
     else:
         rodas.dense(cont, x, out)
 

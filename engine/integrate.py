@@ -15,12 +15,12 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from engine import driver, sparse, state as S, vm
+from engine import bdf, driver, sparse, state as S, vm
 from engine.report import build_report
 from engine.switching import N_POLICY, SwitchPolicy
-from engine.tableaux import DOPRI5, METHOD_NAMES, RADAU5, RODAS
+from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
 
-METHODS = ("auto", "dopri5", "radau5", "rodas")
+METHODS = ("auto", "dopri5", "radau5", "rodas", "bdf")
 
 # Named outcomes. The strings are part of the wire format.
 SUCCEEDED = "succeeded"
@@ -35,8 +35,8 @@ OUTCOMES = (SUCCEEDED, TOLERANCE_UNREACHABLE, STEP_UNDERFLOW, NEWTON_FAILURE, ST
             TIME_LIMIT, CANCELLED, NON_FINITE)
 
 MIN_RTOL = 1e-13  # below this, double precision cannot deliver the tolerance
-_PINNED = {"auto": -1, "dopri5": DOPRI5, "radau5": RADAU5, "rodas": RODAS}
-_ORDER = {DOPRI5: 5, RADAU5: 3, RODAS: 4}
+_PINNED = {"auto": -1, "dopri5": DOPRI5, "radau5": RADAU5, "rodas": RODAS, "bdf": BDF}
+_ORDER = {DOPRI5: 5, RADAU5: 3, RODAS: 4, BDF: 1}
 _STATUS = {S.DONE: SUCCEEDED, S.ST_STEP_UNDERFLOW: STEP_UNDERFLOW,
            S.ST_NEWTON_FAILURE: NEWTON_FAILURE, S.ST_STEP_LIMIT: STEP_LIMIT,
            S.ST_NON_FINITE: NON_FINITE}
@@ -95,9 +95,9 @@ class _Run:
         self.V = np.zeros((S.N_ROWS, n))
         if o.nonnegative is not False and o.nonnegative is not None:
             self.V[S.V_NNMASK] = np.broadcast_to(np.asarray(o.nonnegative, dtype=float), (n,))
-        self.cont = np.zeros((5, n))
+        self.cont = np.zeros((6, n))
         implicit = o.method != "dopri5"
-        self.sparse = implicit and sparse.wants_sparse(kernel)
+        self.sparse = o.method == "bdf" or (implicit and sparse.wants_sparse(kernel))
         self.pattern = sparse.Pattern(kernel) if self.sparse else None
         self.sparse_lu = None
         m = n if implicit and not self.sparse else 0
@@ -133,8 +133,9 @@ class _Run:
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
-        if self.sparse:  # large sparse Jacobian: Rodas with SuperLU (engine.sparse)
-            iw[S.I_PINNED] = iw[S.I_METHOD] = RODAS
+        self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
+        if self.sparse:  # large sparse Jacobian: SuperLU (engine.sparse, engine.bdf)
+            iw[S.I_PINNED] = iw[S.I_METHOD] = RODAS if o.method == "rodas" else BDF
         iw[S.I_MAX_STEPS] = o.max_steps
         iw[S.I_HIST_STRIDE] = 1
         iw[S.I_STEPS_IN_METHOD] = o.policy.min_steps  # no hysteresis for the first method
@@ -145,7 +146,10 @@ class _Run:
 
     def advance(self, kernel, budget):
         if self.sparse:
-            sparse.advance(kernel, self, self.pattern, budget)
+            if self.iw[S.I_METHOD] == BDF:
+                bdf.advance(kernel, self, self.pattern, budget)
+            else:
+                sparse.advance(kernel, self, self.pattern, budget)
             return
         driver.advance(kernel, self.p, self.regs, self.y, self.atol, self.pol, self.fs,
                        self.iw, self.V, self.cont, self.J, self.jv, self.LU, self.piv,
@@ -185,7 +189,7 @@ def integrate(
     _check(kernel, y0, t0, t1, t_out, o)
     t_out = t_out[(t_out >= t0) & (t_out <= t1)]
     run = _Run(kernel, p, y0, t0, t1, t_out, o)
-    secs = np.zeros(3)
+    secs = np.zeros(len(METHOD_NAMES))
     stop = None
     if o.rtol < MIN_RTOL:
         stop = TOLERANCE_UNREACHABLE

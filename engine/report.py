@@ -105,7 +105,7 @@ def build_report(kernel, run, o, sol, conservation, secs, started) -> dict:
                                                     float(run.pol[P_BOUNDARY]))
         rep["warnings"] = _warnings(run, o, run.y0)
     if run.sparse and o.method in ("auto", "radau5"):
-        rep["warnings"].append(f"large sparse system: method '{o.method}' ran as rodas "
+        rep["warnings"].append(f"large sparse system: method '{o.method}' ran as bdf "
                                "with sparse LU (the sparse path has no Radau5 or "
                                "switching yet)")
     rep["solve_seconds"] = time.perf_counter() - started

@@ -82,5 +82,5 @@ RO_DENSE = np.array([
      0.2476722511418386e+02, -0.6594389125716872e+01]])
 
 # Method identifiers used inside the compiled loop.
-DOPRI5, RADAU5, RODAS = 0, 1, 2
-METHOD_NAMES = ("dopri5", "radau5", "rodas")
+DOPRI5, RADAU5, RODAS, BDF = 0, 1, 2, 3
+METHOD_NAMES = ("dopri5", "radau5", "rodas", "bdf")
