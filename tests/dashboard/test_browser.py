@@ -135,3 +135,19 @@ def test_a_running_job_shows_live_progress_and_can_be_cancelled_from_its_page(br
     assert not page.is_visible("#progress-card") and not page.is_visible("#cancel")
     assert "cancelled" in page.inner_text("#outcome")
     assert browser.errors == []
+
+
+def test_long_outputs_are_thinned_for_drawing_but_keep_their_extremes(browser, stack):
+    page = browser.page
+    page.goto(stack.base + "/jobs/0123456789abcdef0123456789ab")  # any page that loads plots.js
+    out = page.evaluate("""() => {
+        const n = 100000, x = [], y = [];
+        for (let i = 0; i < n; i++) { x.push(i + 1); y.push(Math.sin(i / 500)); }
+        y[51234] = 42; y[777] = -42;
+        const [xs, ys] = SLPlots.prepare(x, [y], true, false);
+        return { n: xs.length, max: Math.max(...ys), min: Math.min(...ys), first: xs[0], last: xs[xs.length - 1],
+                 sorted: xs.every((v, i) => i === 0 || v > xs[i - 1]) };
+    }""")
+    assert out["n"] <= 6000 and out["sorted"]
+    assert (out["max"], out["min"]) == (42, -42)
+    assert (out["first"], out["last"]) == (1, 100000)
