@@ -223,3 +223,21 @@ def test_other_owners_get_404_and_lists_hold_only_ones_own(bsettings, store):
     assert c.post(f"/v1/batches/{batch_id}/cancel", headers=hben).status_code == 404
     assert [b["id"] for b in c.get("/v1/batches", headers=hana).get_json()["items"]] == [batch_id]
     assert c.get("/v1/batches", headers=hben).get_json()["items"] == []
+
+
+def test_lists_page_newest_first_with_a_cursor(bclient):
+    ids = [submit(bclient, grid_batch([1.0])).get_json()["id"] for _ in range(3)]
+    first = bclient.get("/v1/batches?limit=2").get_json()
+    assert [b["id"] for b in first["items"]] == ids[::-1][:2] and first["next_cursor"] == ids[1]
+    second = bclient.get(f"/v1/batches?limit=2&cursor={first['next_cursor']}").get_json()
+    assert [b["id"] for b in second["items"]] == [ids[0]] and second["next_cursor"] is None
+    assert bclient.get("/v1/batches?limit=0").status_code == 400
+
+
+def test_trajectories_beyond_the_cap_are_refused(bsettings, store):
+    from service import create_app
+
+    app = create_app(dataclasses.replace(bsettings, max_batch_trajectory_values=100), store=store)
+    r = submit(app.test_client(), grid_batch([float(k) for k in range(1, 30)], trajectories=True))
+    assert r.status_code == 422
+    assert [e["pointer"] for e in r.get_json()["errors"]] == ["/trajectories"]
