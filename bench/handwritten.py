@@ -51,16 +51,16 @@ def hires_j(t, y):
     return J
 
 
-MU_VDP = 1000.0
+EPS_VDP = 1e-6
 
 
 def vanderpol_f(t, y):
-    return np.array([y[1], MU_VDP * ((1.0 - y[0] ** 2) * y[1] - y[0])])
+    return np.array([y[1], ((1.0 - y[0] ** 2) * y[1] - y[0]) / EPS_VDP])
 
 
 def vanderpol_j(t, y):
     return np.array([[0.0, 1.0],
-                     [MU_VDP * (-2.0 * y[0] * y[1] - 1.0), MU_VDP * (1.0 - y[0] ** 2)]])
+                     [(-2.0 * y[0] * y[1] - 1.0) / EPS_VDP, (1.0 - y[0] ** 2) / EPS_VDP]])
 
 
 MU_A = 0.012277471

@@ -3,9 +3,9 @@
 Signatures follow the peers' calling conventions, with parameters passed as one
 float64 array ``p`` (``userdata`` for CVODE, ``args`` for odeint):
 
-- ``<name>_rhs(t, y, out, p)`` and ``<name>_jac(t, y, J, p)`` fill arrays in place
-  (the CVODE right-hand side is ``<name>_rhs`` itself);
-- ``<name>_cvjac(t, y, yp, J, p)`` is the CVODE Jacobian;
+- ``<name>_rhs(t, y, out, p)`` and ``<name>_jac(t, y, J, p)`` fill arrays in place;
+- ``<name>_cvrhs(t, y, yp, ud)`` and ``<name>_cvjac(t, y, yp, J, ud)`` are CVODE's, with
+  ``ud = (p, ...)`` (scikit-sundae tests userdata for truth, so it cannot be a bare array);
 - ``<name>_f(t, y, p)`` / ``<name>_df(t, y, p)`` return new arrays (odeint, tfirst=True).
 
 Each wrapper calls its kernel as a module global (a jitted function passed as an
@@ -40,8 +40,13 @@ def robertson_jac(t, y, J, p):
 
 
 @njit(cache=True)
-def robertson_cvjac(t, y, yp, J, p):
-    robertson_jac(t, y, J, p)
+def robertson_cvrhs(t, y, yp, ud):
+    robertson_rhs(t, y, yp, ud[0])
+
+
+@njit(cache=True)
+def robertson_cvjac(t, y, yp, J, ud):
+    robertson_jac(t, y, J, ud[0])
 
 
 @njit(cache=True)
@@ -90,8 +95,13 @@ def hires_jac(t, y, J, p):
 
 
 @njit(cache=True)
-def hires_cvjac(t, y, yp, J, p):
-    hires_jac(t, y, J, p)
+def hires_cvrhs(t, y, yp, ud):
+    hires_rhs(t, y, yp, ud[0])
+
+
+@njit(cache=True)
+def hires_cvjac(t, y, yp, J, ud):
+    hires_jac(t, y, J, ud[0])
 
 
 @njit(cache=True)
@@ -108,26 +118,31 @@ def hires_df(t, y, p):
     return J
 
 
-# --- Van der Pol (p = mu)
+# --- Van der Pol, scaled form (p = eps)
 
 
 @njit(cache=True)
 def vanderpol_rhs(t, y, out, p):
     out[0] = y[1]
-    out[1] = p[0] * ((1.0 - y[0] * y[0]) * y[1] - y[0])
+    out[1] = ((1.0 - y[0] * y[0]) * y[1] - y[0]) / p[0]
 
 
 @njit(cache=True)
 def vanderpol_jac(t, y, J, p):
     J[0, 0] = 0.0
     J[0, 1] = 1.0
-    J[1, 0] = p[0] * (-2.0 * y[0] * y[1] - 1.0)
-    J[1, 1] = p[0] * (1.0 - y[0] * y[0])
+    J[1, 0] = (-2.0 * y[0] * y[1] - 1.0) / p[0]
+    J[1, 1] = (1.0 - y[0] * y[0]) / p[0]
 
 
 @njit(cache=True)
-def vanderpol_cvjac(t, y, yp, J, p):
-    vanderpol_jac(t, y, J, p)
+def vanderpol_cvrhs(t, y, yp, ud):
+    vanderpol_rhs(t, y, yp, ud[0])
+
+
+@njit(cache=True)
+def vanderpol_cvjac(t, y, yp, J, ud):
+    vanderpol_jac(t, y, J, ud[0])
 
 
 @njit(cache=True)
@@ -160,6 +175,11 @@ def arenstorf_rhs(t, y, out, p):
 
 
 @njit(cache=True)
+def arenstorf_cvrhs(t, y, yp, ud):
+    arenstorf_rhs(t, y, yp, ud[0])
+
+
+@njit(cache=True)
 def arenstorf_f(t, y, p):
     out = np.empty(4)
     arenstorf_rhs(t, y, out, p)
@@ -174,6 +194,11 @@ def lorenz_rhs(t, y, out, p):
     out[0] = p[0] * (y[1] - y[0])
     out[1] = y[0] * (p[1] - y[2]) - y[1]
     out[2] = y[0] * y[1] - p[2] * y[2]
+
+
+@njit(cache=True)
+def lorenz_cvrhs(t, y, yp, ud):
+    lorenz_rhs(t, y, yp, ud[0])
 
 
 @njit(cache=True)
@@ -204,8 +229,13 @@ def ramp_jac(t, y, J, p):
 
 
 @njit(cache=True)
-def ramp_cvjac(t, y, yp, J, p):
-    ramp_jac(t, y, J, p)
+def ramp_cvrhs(t, y, yp, ud):
+    ramp_rhs(t, y, yp, ud[0])
+
+
+@njit(cache=True)
+def ramp_cvjac(t, y, yp, J, ud):
+    ramp_jac(t, y, J, ud[0])
 
 
 @njit(cache=True)

@@ -115,7 +115,7 @@ def main(argv=None) -> int:
     quick = not args.full
     names = args.problems.split(",") if args.problems else (PR.QUICK if quick else PR.NAMES)
     rtols = QUICK_RTOLS if quick else FULL_RTOLS
-    cap = args.cap or (10.0 if quick else 20.0)
+    cap = args.cap or (5.0 if quick else 20.0)
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
     started = time.perf_counter()
@@ -137,7 +137,7 @@ def main(argv=None) -> int:
         problems.append(summary)
     result = {"mode": "quick" if quick else "full", "machine": machine(), "cap_seconds": cap,
               "rtols": list(rtols), "problems": problems, "records": records}
-    result["sweep"] = sweep.robertson_sweep(members=1000 if quick else 5000)
+    result["sweep"] = sweep.robertson_sweep(members=1000 if quick else 5000, cap=cap)
     log(f"sweep: {result['sweep']}")
     if not args.no_service:
         from bench import service_bench
