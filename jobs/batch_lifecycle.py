@@ -15,8 +15,12 @@ once, and its members are counted once.
 The batch is settled (``succeeded``, or ``cancelled`` when a cancel was asked
 for) when every chunk is done, cancelled or exhausted.
 
+Fair sharing: each owner's window of chunks in flight is ``max_inflight`` divided
+by the owner's number of unsettled batches (the active-owners hash), so API keys,
+not batches, share the queue in turns.
+
 KEYS for every script: batch hash, chunk hash, lease zset, active-batches zset,
-then extras.
+active-owners hash, then extras.
 """
 
 # Shared Lua helpers.
@@ -34,6 +38,8 @@ local function close_chunk(i, state, counter, count, was_published)
   if count > 0 then redis.call('HINCRBY', KEYS[1], counter, count) end
 end
 local function settle(id, now, ttl)
+  local current = redis.call('HGET', KEYS[1], 'state')
+  if current ~= 'queued' and current ~= 'running' then return 0 end
   local fin = tonumber(redis.call('HGET', KEYS[1], 'finished_chunks'))
   if fin < tonumber(redis.call('HGET', KEYS[1], 'n_chunks')) then return 0 end
   local state = 'succeeded'
@@ -41,6 +47,8 @@ local function settle(id, now, ttl)
   redis.call('HSET', KEYS[1], 'state', state, 'finished', now)
   if not redis.call('HGET', KEYS[1], 'started') then redis.call('HSET', KEYS[1], 'started', now) end
   redis.call('ZREM', KEYS[4], id)
+  local owner = redis.call('HGET', KEYS[1], 'owner')
+  if redis.call('HINCRBY', KEYS[5], owner, -1) <= 0 then redis.call('HDEL', KEYS[5], owner) end
   redis.call('EXPIRE', KEYS[1], ttl)
   redis.call('EXPIRE', KEYS[2], ttl)
   redis.call('DEL', KEYS[3])
@@ -88,14 +96,14 @@ redis.call('ZADD', KEYS[3], tonumber(ARGV[3]) + tonumber(ARGV[4]), i)
 return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
 """
 
-# KEYS[5]: the chunk's result key.
+# KEYS[6]: the chunk's result key.
 # ARGV: id, chunk, attempt, now, n_ok, n_failed, n_cancelled, ttl, blob
 # Returns 0 when fenced out, 1 when written, 2 when written and the batch is now settled.
 FINISH = _COMMON + """
 local id, i, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[4]), tonumber(ARGV[8])
 if redis.call('HGET', KEYS[2], 's' .. i) ~= 'r' then return 0 end
 if redis.call('HGET', KEYS[2], 'a' .. i) ~= ARGV[3] then return 0 end
-redis.call('SET', KEYS[5], ARGV[9], 'EX', ttl)
+redis.call('SET', KEYS[6], ARGV[9], 'EX', ttl)
 close_chunk(i, 'd', 'done', tonumber(ARGV[5]), true)
 redis.call('HINCRBY', KEYS[1], 'failed', tonumber(ARGV[6]))
 redis.call('HINCRBY', KEYS[1], 'cancelled', tonumber(ARGV[7]))
@@ -105,7 +113,7 @@ return 1 + settle(id, now, ttl)
 """
 
 # ARGV: max_inflight, now, stale_seconds. Returns the chunk indexes to publish now (the
-# caller publishes them); each gets a waiting entry 'w<i>' in the lease zset, due at now + stale.
+# caller publishes them), keeping the owner's share of max_inflight; each gets a waiting entry 'w<i>' in the lease zset, due at now + stale.
 NEXT = """
 local state = redis.call('HGET', KEYS[1], 'state')
 if state ~= 'queued' and state ~= 'running' then return {} end
@@ -113,8 +121,11 @@ if redis.call('HGET', KEYS[1], 'cancel') == '1' then return {} end
 local n = tonumber(redis.call('HGET', KEYS[1], 'n_chunks'))
 local published = tonumber(redis.call('HGET', KEYS[1], 'published'))
 local inflight = tonumber(redis.call('HGET', KEYS[1], 'inflight'))
+local owner = redis.call('HGET', KEYS[1], 'owner')
+local batches = math.max(1, tonumber(redis.call('HGET', KEYS[5], owner) or '1'))
+local window = math.max(1, math.floor(tonumber(ARGV[1]) / batches))
 local out = {}
-while inflight < tonumber(ARGV[1]) and published < n do
+while inflight < window and published < n do
   table.insert(out, published)
   redis.call('ZADD', KEYS[3], tonumber(ARGV[2]) + tonumber(ARGV[3]), 'w' .. published)
   published = published + 1

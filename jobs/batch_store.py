@@ -126,7 +126,7 @@ class BatchStore:
     def _k(self, batch_id: str, *extra: str) -> list[str]:
         k = self.keys
         return [k.batch(batch_id), k.batch_chunks(batch_id), k.batch_leases(batch_id),
-                k.batches_active(), *extra]
+                k.batches_active(), k.batches_active_owners(), *extra]
 
     # ---- API side -------------------------------------------------------
     def create(self, spec: dict, design: dict, columns: dict, total: int, chunk_size: int,
@@ -146,6 +146,7 @@ class BatchStore:
         pipe.expire(key, self.settings.result_ttl_seconds)
         pipe.zadd(self.keys.batches_owner(owner), {batch_id: 0})
         pipe.zadd(self.keys.batches_active(), {batch_id: now})
+        pipe.hincrby(self.keys.batches_active_owners(), owner, 1)
         pipe.execute()
         return self.get(batch_id)
 
@@ -181,7 +182,8 @@ class BatchStore:
                                args=[batch_id, repr(time.time()), self.settings.result_ttl_seconds]))
 
     def next_chunks(self, batch_id: str) -> list[int]:
-        """Chunk indexes to publish now (keeps at most ``batch_chunks_in_flight`` in flight)."""
+        """Chunk indexes to publish now: at most ``batch_chunks_in_flight`` in flight per owner,
+        shared by the owner's unsettled batches."""
         s = self.settings
         return [int(i) for i in self._next(keys=self._k(batch_id), args=[
             s.batch_chunks_in_flight, repr(time.time()), s.batch_stale_seconds])]

@@ -18,6 +18,7 @@
 | {p}:batch:{id}:result:{i}    | string | chunk result blob (jobs/blob.py)        | result TTL     |
 | {p}:batches:owner:{o}        | zset   | one owner's batch ids                   | pruned lazily  |
 | {p}:batches:active           | zset   | batch ids not yet settled (reconciler)  | none           |
+| {p}:batches:active_owners    | hash   | owner -> number of unsettled batches    | none           |
 
 Job ids sort by creation time (hex microseconds first), so the indexes are
 lexicographic sorted sets with score 0 and pagination is ZRANGEBYLEX.
@@ -119,3 +120,6 @@ class Keys:
 
     def batches_active(self) -> str:
         return f"{self.prefix}:batches:active"
+
+    def batches_active_owners(self) -> str:
+        return f"{self.prefix}:batches:active_owners"

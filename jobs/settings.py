@@ -37,7 +37,7 @@ class Settings:
     max_batch_members: int = 100_000
     batch_chunk_size: int = 200          # members per chunk unless the batch says otherwise
     batch_max_chunks: int = 5_000        # larger chunks for larger batches beyond this
-    batch_chunks_in_flight: int = 8      # published, unfinished chunks per batch
+    batch_chunks_in_flight: int = 8      # published, unfinished chunks per owner (shared by its batches)
     max_batch_trajectory_values: int = 5_000_000
     batch_stale_seconds: int = 60        # a published chunk unclaimed this long is published again
 

@@ -76,7 +76,7 @@ def test_submit_answers_202_and_writes_no_key_per_member(bclient, bstore):
     assert view["progress"]["total"] == 1000 and view["progress"]["remaining"] == 1000
     assert view["columns"] == {"values": ["k"], "summaries": ["final_y", "integral_y", "half_life"]}
     keys = bstore.r.keys(bstore.keys.prefix + ":batch*")
-    assert len(keys) <= 4  # record, chunk states, owner index, active set
+    assert len(keys) <= 5  # record, leases, owner index, active set, active owners
 
 
 def test_a_grid_batch_runs_to_a_complete_table_that_matches_the_analytic_solution(bclient, bstore):
@@ -241,3 +241,17 @@ def test_trajectories_beyond_the_cap_are_refused(bsettings, store):
     r = submit(app.test_client(), grid_batch([float(k) for k in range(1, 30)], trajectories=True))
     assert r.status_code == 422
     assert [e["pointer"] for e in r.get_json()["errors"]] == ["/trajectories"]
+
+
+def test_an_owners_batches_share_one_window_of_chunks_in_flight(bclient, bstore):
+    window = bstore.settings.batch_chunks_in_flight
+    first = submit(bclient, grid_batch([1.0] * 40, chunk_size=1)).get_json()["id"]
+    assert bstore.r.hget(bstore.keys.batch(first), "published") == str(window).encode()
+    second = submit(bclient, grid_batch([1.0] * 40, chunk_size=1)).get_json()["id"]
+    assert bstore.r.hget(bstore.keys.batch(second), "published") == str(window // 2).encode()
+    # another owner's batch gets a whole window of its own
+    other = bstore.create({}, {"kind": "list", "columns": [], "rows": [[]] * 40}, {"values": [], "summaries": []},
+                          40, 1, "other owner", "zed")
+    assert len(bstore.next_chunks(other.id)) == window
+    # the first batch publishes no more until its in-flight chunks drop below the owner's share
+    assert bstore.next_chunks(first) == []
