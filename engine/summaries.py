@@ -132,10 +132,14 @@ def value_at(t: np.ndarray, x: np.ndarray, time: float) -> float:
 
 def extremum(t: np.ndarray, x: np.ndarray, largest: bool) -> tuple[float, float]:
     """(value, time) of the maximum (or minimum), refined by a parabola through three samples."""
-    if not len(x) or np.all(np.isnan(x)):
+    if not len(x):
         return np.nan, np.nan
     s = x if largest else -x
-    i = int(np.nanargmax(s))
+    i = int(np.argmax(s))
+    if np.isnan(s[i]):  # argmax stops at the first NaN
+        if np.all(np.isnan(s)):
+            return np.nan, np.nan
+        i = int(np.nanargmax(s))
     best, when = float(s[i]), float(t[i])
     if 0 < i < len(x) - 1:
         x0, x1, x2 = t[i - 1], t[i], t[i + 1]

@@ -87,3 +87,10 @@ def test_no_crossing_is_nan_and_a_condition_holding_at_the_start_gives_t0():
     assert np.isnan(summaries.first_crossing(t, x, 5.0, True))
     assert summaries.first_crossing(t, x, 0.5, True) == 0.0
     assert summaries.first_crossing(t, x, 1.55, True) == pytest.approx(0.55)
+
+
+def test_extrema_skip_nan_samples_and_all_nan_gives_nan():
+    t = np.arange(4.0)
+    assert summaries.extremum(t, np.array([np.nan, 1.0, 3.0, np.nan]), True) == (3.0, 2.0)
+    assert summaries.extremum(t, np.array([np.nan, 1.0, -3.0, np.nan]), False) == (-3.0, 2.0)
+    assert np.isnan(summaries.extremum(t, np.full(4, np.nan), True)).all()
