@@ -60,7 +60,8 @@ def api_command(host: str, port: int, workers: int = 2) -> list[str]:
 def worker_command(concurrency: int, queues: str | None = None) -> list[str]:
     from jobs.settings import Settings
 
-    queues = queues or Settings.from_env().interactive_queue
+    settings = Settings.from_env()
+    queues = queues or f"{settings.interactive_queue},{settings.batch_queue}"
     return [sys.executable, "-m", "celery", "-A", "worker.celery_app", "worker", "--loglevel", "INFO",
             "-c", str(concurrency), "-Q", queues, "--max-tasks-per-child", "500",
             "--max-memory-per-child", "2000000", "-n", f"stifflane-{os.getpid()}@%h"]
