@@ -256,8 +256,30 @@ class JobStore:
         """1: back to queued (publish it again); 2: was cancelling, now cancelled; 0: no-op."""
         return int(self._requeue(keys=self._script_keys(job_id), args=[job_id, repr(time.time())]))
 
-    def queued_ids(self) -> list[str]:
-        return [_s(i) for i in self.r.zrange(self.keys.index_state("queued"), 0, -1)]
+    def stranded_queued(self, older_than: float, limit: int = 100) -> list[str]:
+        """Queued jobs while the broker's queue is empty: their message was lost.
+
+        A message prefetched by a worker that was then killed stays unacknowledged until
+        the broker's visibility timeout; a publish can fail after the record was written.
+        Marks each returned job as republished now, so it is not returned again soon.
+        """
+        if self.r.llen(self.settings.interactive_queue) > 0:
+            return []
+        ids = [_s(i) for i in self.r.zrangebylex(self.keys.index_state("queued"), "-", "+", start=0, num=limit)]
+        if not ids:
+            return []
+        pipe = self.r.pipeline(transaction=False)
+        for i in ids:
+            pipe.hget(self.keys.job(i), "published")
+        now = time.time()
+        stale = [i for i, p in zip(ids, pipe.execute())
+                 if now - (float(p) if p else created_at(i)) > older_than]
+        if stale:
+            pipe = self.r.pipeline(transaction=False)
+            for i in stale:
+                pipe.hset(self.keys.job(i), "published", repr(now))
+            pipe.execute()
+        return stale
 
     def worker_beat(self, name: str, info: dict, ttl: int = 30) -> None:
         self.r.set(self.keys.worker(name), json.dumps(info), ex=ttl)

@@ -1,4 +1,5 @@
-"""Reconciler: requeues running jobs whose lease expired (their worker died).
+"""Reconciler: requeues running jobs whose lease expired (their worker died), and
+republishes queued jobs whose message is gone (prefetched by a killed worker).
 
 Runs as a thread in each worker's main process; the requeue step is atomic in
 Redis, so when several workers notice the same job only one republishes it.
@@ -19,8 +20,9 @@ log = logging.getLogger(__name__)
 
 class Reconciler:
     def __init__(self, store: JobStore, publish: Callable[[str], None], name: str, info: dict,
-                 period: float = 2.0):
+                 period: float = 2.0, stranded_seconds: float = 60.0):
         self.store, self.publish, self.name, self.period = store, publish, name, period
+        self.stranded_seconds = stranded_seconds
         self.info = {"name": name, "pid": os.getpid(), "started": time.time(), **info}
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="reconciler", daemon=True)
@@ -46,3 +48,7 @@ class Reconciler:
             if action == 1:
                 log.warning("job %s lost its worker; requeued", job_id)
                 self.publish(job_id)
+        # Claims are fenced, so a duplicate message for a job is harmless.
+        for job_id in self.store.stranded_queued(older_than=self.stranded_seconds):
+            log.warning("job %s queued but its message is gone; republished", job_id)
+            self.publish(job_id)

@@ -146,3 +146,12 @@ def test_every_key_a_job_writes_has_a_ttl(store):
     store.finish(rec.id, attempt, "succeeded", "succeeded", "ok", {}, b"blob")
     keys = list(store.r.scan_iter(match=store.keys.prefix + ":*"))
     assert keys and all(store.r.ttl(k) > 0 for k in keys), [k for k in keys if store.r.ttl(k) <= 0]
+
+
+def test_queued_jobs_whose_message_is_gone_are_found_once(store):
+    (rec,) = make(store)
+    assert store.stranded_queued(older_than=3600) == []  # young: still legitimately waiting
+    assert store.stranded_queued(older_than=-1) == [rec.id]
+    assert store.stranded_queued(older_than=1) == []  # just republished
+    store.r.rpush(store.settings.interactive_queue, b"a message")
+    assert store.stranded_queued(older_than=-1) == []  # the broker still holds messages
