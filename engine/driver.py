@@ -10,25 +10,23 @@ also returns right after a method switch (so time per method can be measured).
 import numpy as np
 from numba import njit
 
-from engine import dopri5, radau5, rodas, switching, vm
+from engine import switching, vm
 from engine.errors_norm import initial_step
 from engine.events import dense_eval, scan
-from engine.state import (DONE, FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
-                          F_ERR_OLD, F_EXPL_NEEDED, F_H, F_H_JCHECK, F_H_LAST, F_H_LU, F_H_OLD,
-                          F_HEXP, F_HMAX, F_NEWTON_TOL, F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_BAD,
-                          F_T_OLD, F_TEND, I_ACCEPTED, I_CONT_METHOD, I_FAIL_KIND,
-                          I_FIRST, I_HAS_TIME, I_HAVE_CONT, I_HIST_N, I_HIST_STRIDE,
-                          I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
-                          I_MAX_STEPS, I_METHOD, I_NEV_LOG, I_NEWTON_FAIL,
-                          I_NEWTON_IT, I_NFEV, I_NJEV, I_NLU, I_NONNEG,
-                          I_NONNEG_REJECTS, I_NSWITCH, I_PINNED, I_REJECTED, I_RETURN,
-                          I_STATUS, I_STEPS_DOPRI5, I_STEPS_IN_METHOD, I_STIFF_POS,
-                          I_TERMINAL, RUNNING, ST_NEWTON_FAILURE, ST_NON_FINITE,
-                          ST_STEP_LIMIT, ST_STEP_UNDERFLOW, V_ERR, V_F, V_F0, V_FDT,
-                          V_K, V_NNMASK, V_PV, V_PW, V_SCALE, V_W, V_YEV, V_YNEW, V_YTMP, V_Z)
+from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ERR_OLD,
+                          F_EXPL_NEEDED, F_H, F_H_JCHECK, F_H_LAST, F_H_OLD, F_HEXP, F_HMAX,
+                          F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_OLD, F_TEND, I_ACCEPTED,
+                          I_CONT_METHOD, I_FAIL_KIND, I_FIRST, I_HAVE_CONT, I_HIST_N,
+                          I_HIST_STRIDE, I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
+                          I_MAX_STEPS, I_METHOD, I_NEV_LOG, I_NFEV, I_NJEV, I_NONNEG,
+                          I_NSWITCH, I_PINNED, I_REJECTED, I_RETURN, I_STATUS,
+                          I_STEPS_DOPRI5, I_STEPS_IN_METHOD, I_STIFF_POS, I_TERMINAL, RUNNING,
+                          ST_NEWTON_FAILURE, ST_NON_FINITE, ST_STEP_LIMIT, ST_STEP_UNDERFLOW,
+                          V_ERR, V_F0, V_K, V_NNMASK, V_PV, V_PW, V_YEV, V_YNEW, V_YTMP)
+from engine.steps import new_jacobian, nonneg_check, try_dopri5, try_radau5, try_rodas
 from engine.switching import (P_BOUNDARY, P_POWER_ITERS, P_UNSTABLE,
                               REASON_EXPLICIT_CHEAPER, REASON_STIFF, REASON_UNSTABLE)
-from engine.tableaux import DOPRI5, RADAU5, RODAS
+from engine.tableaux import DOPRI5, RADAU5
 
 EPS = 2.220446049250313e-16
 JAC_CHECK_EVERY = 20  # auto mode: accepted explicit steps between Jacobian checks
@@ -53,191 +51,6 @@ def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
         fs[F_H] = initial_step(kernel, p, regs, t, y, f0, atol, fs[F_RTOL], order,
                                min(fs[F_HMAX], fs[F_TEND] - t), V[V_YTMP], V[V_ERR])
         iw[I_NFEV] += 1
-    return True
-
-
-@njit(cache=True, nogil=True)
-def _nonneg(ynew, y, atol, rtol, mask):
-    """0: all >= 0; 1: small negatives (clip); 2: significantly negative."""
-    worst = 0
-    for i in range(y.shape[0]):
-        if ynew[i] < 0.0 and mask[i] != 0.0:
-            if ynew[i] < -(atol[i] + rtol * abs(y[i])):
-                return 2
-            worst = 1
-    return worst
-
-
-@njit(cache=True, nogil=True)
-def _reject(fs, iw, h, fac, kind):
-    iw[I_REJECTED] += 1
-    iw[I_LAST_REJECTED] = 1
-    iw[I_FAIL_KIND] = kind
-    if kind == FAIL_NONFINITE:
-        fs[F_T_BAD] = fs[F_T] + h
-    fs[F_H] = h * fac
-
-
-@njit(cache=True, nogil=True)
-def _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol):
-    vm.jac_dense(kernel, t, y, p, regs, jv, J)
-    iw[I_NJEV] += 1
-    iw[I_JAC_CURRENT] = 1
-    iw[I_LU_VALID] = 0
-    rho = switching.spectral_radius(J, V[V_PV], V[V_PW], int(pol[P_POWER_ITERS]))
-    fs[F_RHO] = rho
-    fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
-
-
-@njit(cache=True, nogil=True)
-def _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
-    K = V[V_K:V_K + 7]
-    ynew = V[V_YNEW]
-    rtol = fs[F_RTOL]
-    err, rho = dopri5.attempt(kernel, p, regs, fs[F_T], y, h, K, ynew, V[V_YTMP],
-                              V[V_ERR], atol, rtol)
-    iw[I_NFEV] += dopri5.STAGE_EVALS
-    fs[F_RATE] = rho  # kept for the instability check of automatic mode
-    if not (err < np.inf):
-        _reject(fs, iw, h, 0.2, FAIL_NONFINITE)
-        return False
-    if err <= 1.0 and iw[I_NONNEG] and _nonneg(ynew, y, atol, rtol, V[V_NNMASK]) == 2:
-        iw[I_NONNEG_REJECTS] += 1
-        _reject(fs, iw, h, 0.5, FAIL_ERROR)
-        return False
-    fac = dopri5.step_factor(err, fs[F_ERR_OLD], iw[I_LAST_REJECTED])
-    if err > 1.0:
-        _reject(fs, iw, h, fac, FAIL_ERROR)
-        return False
-    fs[F_ERR_OLD] = max(err, 1e-4)
-    rho = max(rho, fs[F_RHO_J])
-    fs[F_RHO] = rho
-    fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
-    dopri5.prepare_dense(y, ynew, h, K, cont)
-    fs[F_H] = h * fac
-    return True
-
-
-@njit(cache=True, nogil=True)
-def _try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
-                pivc, cbuf, pol, h):
-    t = fs[F_T]
-    rtol = fs[F_RTOL]
-    n = y.shape[0]
-    if iw[I_JAC_CURRENT] < 0:
-        _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
-    if iw[I_LU_VALID] == 0 or fs[F_H_LU] != h:
-        iw[I_NLU] += 1
-        if not radau5.factor(J, h, LU, piv, LUc, pivc):
-            iw[I_LU_VALID] = 0
-            _reject(fs, iw, h, 0.5, FAIL_SINGULAR)
-            return False
-        iw[I_LU_VALID] = 1
-        fs[F_H_LU] = h
-    scale = V[V_SCALE]
-    for i in range(n):
-        scale[i] = atol[i] + rtol * abs(y[i])
-    Z = V[V_Z:V_Z + 3]
-    radau5.predict(cont, iw[I_HAVE_CONT] == 1 and iw[I_CONT_METHOD] == RADAU5,
-                   fs[F_T_OLD], fs[F_H_LAST], t, h, y, Z)
-    conv, nit, rate, nf = radau5.newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc,
-                                        Z, V[V_W:V_W + 3], V[V_F:V_F + 3], V[V_YTMP],
-                                        cbuf, scale, fs[F_NEWTON_TOL])
-    iw[I_NFEV] += nf
-    iw[I_NEWTON_IT] += nit
-    if not conv:
-        iw[I_NEWTON_FAIL] += 1
-        if iw[I_JAC_CURRENT] == 0:
-            _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
-            return False  # retry with a fresh Jacobian, same h
-        iw[I_LU_VALID] = 0
-        _reject(fs, iw, h, 0.5, FAIL_NONFINITE if rate < 0.0 else FAIL_NEWTON)
-        return False
-    ynew = V[V_YNEW]
-    refine = iw[I_FIRST] == 1 or iw[I_LAST_REJECTED] == 1
-    err, nf = radau5.error(kernel, p, regs, t, y, V[V_F0], h, LU, piv, Z, ynew,
-                           V[V_ERR], V[V_YTMP], atol, rtol, refine)
-    iw[I_NFEV] += nf
-    if not (err < np.inf):
-        iw[I_LU_VALID] = 0
-        _reject(fs, iw, h, 0.25, FAIL_NONFINITE)
-        return False
-    if err <= 1.0 and iw[I_NONNEG] and _nonneg(ynew, y, atol, rtol, V[V_NNMASK]) == 2:
-        iw[I_NONNEG_REJECTS] += 1
-        iw[I_LU_VALID] = 0
-        _reject(fs, iw, h, 0.5, FAIL_ERROR)
-        return False
-    if err > 1.0:
-        fac = radau5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, False)
-        iw[I_LU_VALID] = 0
-        _reject(fs, iw, h, fac, FAIL_ERROR)
-        return False
-    recompute_jac = nit > 2 and rate > 1e-3
-    fac = radau5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, True)
-    if iw[I_LAST_REJECTED] == 1:
-        fac = min(fac, 1.0)
-    if not recompute_jac and fac < 1.2 and fac >= 1.0:
-        fac = 1.0  # keep h, so the LU factors stay valid
-    else:
-        iw[I_LU_VALID] = 0
-    fs[F_H_OLD] = h
-    fs[F_ERR_OLD] = err
-    radau5.prepare_dense(y, Z, cont)
-    fs[F_H] = h * fac
-    iw[I_JAC_CURRENT] = -2 if recompute_jac else 0  # -2: refresh after the step
-    return True
-
-
-@njit(cache=True, nogil=True)
-def _try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h):
-    t = fs[F_T]
-    rtol = fs[F_RTOL]
-    n = y.shape[0]
-    f0 = V[V_F0]
-    fdt = V[V_FDT]
-    if iw[I_JAC_CURRENT] != 1:
-        _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
-        if iw[I_HAS_TIME]:
-            dt = np.sqrt(EPS) * max(abs(t), h)
-            vm.rhs(kernel, t + dt, y, p, regs, fdt)
-            iw[I_NFEV] += 1
-            for i in range(n):
-                fdt[i] = (fdt[i] - f0[i]) / dt
-        else:
-            fdt[:] = 0.0
-    if iw[I_LU_VALID] == 0 or fs[F_H_LU] != h:
-        iw[I_NLU] += 1
-        if not rodas.factor(J, h, LU, piv):
-            iw[I_LU_VALID] = 0
-            _reject(fs, iw, h, 0.5, FAIL_SINGULAR)
-            return False
-        iw[I_LU_VALID] = 1
-        fs[F_H_LU] = h
-    K = V[V_K:V_K + 6]
-    ynew = V[V_YNEW]
-    err, nf = rodas.attempt(kernel, p, regs, t, y, f0, fdt, h, LU, piv, K, ynew,
-                            V[V_YTMP], V[V_ERR], atol, rtol)
-    iw[I_NFEV] += nf
-    if not (err < np.inf):
-        _reject(fs, iw, h, 0.2, FAIL_NONFINITE)
-        return False
-    if err <= 1.0 and iw[I_NONNEG] and _nonneg(ynew, y, atol, rtol, V[V_NNMASK]) == 2:
-        iw[I_NONNEG_REJECTS] += 1
-        _reject(fs, iw, h, 0.5, FAIL_ERROR)
-        return False
-    first = iw[I_FIRST] == 1
-    if err > 1.0:
-        fac = rodas.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], False, first)
-        _reject(fs, iw, h, fac, FAIL_ERROR)
-        return False
-    fac = rodas.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], True, first)
-    if iw[I_LAST_REJECTED] == 1:
-        fac = min(fac, 1.0)
-    fs[F_H_OLD] = h
-    fs[F_ERR_OLD] = max(0.01, err)
-    rodas.prepare_dense(y, ynew, K, cont)
-    fs[F_H] = h * fac
-    iw[I_JAC_CURRENT] = 0  # a Rosenbrock step needs J at its own start point
     return True
 
 
@@ -273,7 +86,7 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
     t_old = fs[F_T]
     t_new = t_old + h
     ynew = V[V_YNEW]
-    if iw[I_NONNEG] and _nonneg(ynew, y, atol, fs[F_RTOL], V[V_NNMASK]) == 1:
+    if iw[I_NONNEG] and nonneg_check(ynew, y, atol, fs[F_RTOL], V[V_NNMASK]) == 1:
         for i in range(y.shape[0]):
             if ynew[i] < 0.0 and V[V_NNMASK, i] != 0.0:
                 ynew[i] = 0.0
@@ -368,7 +181,7 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
         vm.rhs(kernel, t, y, p, regs, f0)
         iw[I_NFEV] += 1
         if iw[I_JAC_CURRENT] == -2:
-            _new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
+            new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
     if iw[I_PINNED] >= 0:
         return
     counters = iw[I_STIFF_POS:I_STIFF_POS + 2]
@@ -437,7 +250,7 @@ def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         steps += 1
         method = iw[I_METHOD]
         if method == DOPRI5:
-            ok = _try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h)
+            ok = try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h)
             if iw[I_PINNED] < 0 and h * fs[F_RATE] > pol[P_UNSTABLE] * pol[P_BOUNDARY] \
                     and _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
                 # Far outside the stability region: the step amplifies the fast
@@ -450,10 +263,10 @@ def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc,
                         REASON_UNSTABLE)
                 fs[F_H] = h
         elif method == RADAU5:
-            ok = _try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
+            ok = try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
                              LUc, pivc, cbuf, pol, h)
         else:
-            ok = _try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
+            ok = try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
                             pol, h)
         if ok:
             if _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv,

@@ -17,7 +17,7 @@ import numpy as np
 
 from engine import bdf, driver, sparse, state as S, vm
 from engine.report import build_report
-from engine.switching import N_POLICY, SwitchPolicy
+from engine.switching import SwitchPolicy
 from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
 
 METHODS = ("auto", "dopri5", "radau5", "rodas", "bdf")

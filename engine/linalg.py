@@ -5,7 +5,6 @@ few hundred) they beat a call into LAPACK through an object boundary, and they
 run inside the compiled step loop. Large sparse systems use SuperLU instead
 (see ``engine.sparse``).
 """
-import numpy as np
 from numba import njit
 
 

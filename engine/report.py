@@ -8,7 +8,7 @@ import numpy as np
 from numba import njit
 
 from engine import state as S, stiffness, vm
-from engine.switching import LOG_COLUMNS, P_BOUNDARY, REASON_NAMES
+from engine.switching import P_BOUNDARY, REASON_NAMES
 from engine.tableaux import METHOD_NAMES
 
 MAX_HISTORY = 500

@@ -5,7 +5,6 @@ RODAS code, set 1; see ``engine.tableaux``). Each step uses one Jacobian and one
 LU factorisation of (1/(gamma h) I - J); no Newton iteration. The embedded
 error estimate is the last stage increment; dense output of order 3.
 """
-import numpy as np
 from numba import njit
 
 from engine import vm

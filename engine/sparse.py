@@ -125,7 +125,7 @@ def _jacobian(kernel, run, pattern, t):
 
 def advance(kernel, run, pattern, budget):
     """Python twin of engine.driver.advance for the sparse Rodas path."""
-    fs, iw, V = run.fs, run.iw, run.V
+    fs, iw = run.fs, run.iw
     m = len(run.t_out)
     steps = 0
     lu = run.sparse_lu
