@@ -84,6 +84,7 @@
 
   async function loadExample() {
     const resp = await fetch('/ui/examples/lakeside_demo.json', { cache: 'no-store' });
+    if (!resp.ok) { setState('the demo spec is not installed on this server', false); return; }
     $('spec').value = await resp.text();
     scheduleCheck();
   }
