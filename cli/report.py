@@ -34,6 +34,22 @@ def table(rows: list[list], header: list[str] | None = None) -> str:
     return "\n".join(out)
 
 
+def method_phases(rep: dict) -> list[list]:
+    """[from t, to t, method] for each stretch between switches."""
+    switches = rep.get("switches") or []
+    history = rep.get("step_history") or {}
+    if not switches:
+        used = rep.get("methods_used") or []
+        return [[None, rep.get("t_reached"), used[0]]] if len(used) == 1 else []
+    start = history["t"][0] - history["h"][0] if history.get("t") else None
+    rows, t0 = [], start
+    for s in switches:
+        rows.append([t0, s.get("t"), s.get("from", "")])
+        t0 = s.get("t")
+    rows.append([t0, rep.get("t_reached"), switches[-1].get("to", "")])
+    return rows
+
+
 def format_report(result: dict) -> str:
     """The stiffness report of a result JSON as readable text."""
     rep = result.get("report") or {}
@@ -54,6 +70,9 @@ def format_report(result: dict) -> str:
         parts.append("\nMethods\n" + table([[m, per.get(m, 0), secs.get(m)] for m in per],
                                            ["method", "steps", "seconds"]))
     switches = rep.get("switches") or []
+    phases = method_phases(rep)
+    if len(phases) > 1:
+        parts.append("\nMethod phases\n" + table(phases, ["from t", "to t", "method"]))
     if switches:
         rows = [[s.get("t"), s.get("from", ""), s.get("to", ""), s.get("h"), s.get("rho"),
                  s.get("explicit_step", s.get("h_stability")), s.get("reason", "")] for s in switches]

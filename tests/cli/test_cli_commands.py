@@ -69,8 +69,10 @@ def test_the_report_reads_as_tables():
         "seconds_per_method": {"dopri5": 0.01, "radau5": 0.2},
         "switches": [{"t": 0.5, "from": "dopri5", "to": "radau5", "h": 1e-3, "rho": 3.2e4,
                       "explicit_step": 1.0e-4, "reason": "stiffness_detected"}]}}
+    result["report"]["t_reached"] = 10.0
     text = format_report(result)
     assert "accepted steps" in text and "120" in text
+    assert "Method phases" in text and text.index("dopri5", text.index("Method phases")) < text.index("radau5", text.index("Method phases"))
     assert "Method switches" in text and "stiffness_detected" in text
     lines = text.splitlines()
     header = next(i for i, line in enumerate(lines) if line.startswith("t ") and "reason" in line)

@@ -120,3 +120,12 @@ def test_results_turn_json_nulls_into_nan_and_name_their_columns():
     assert r.table().shape == (2, 4)
     frame = pytest.importorskip("pandas") and r.to_dataframe()
     assert list(frame.columns) == ["A", "B", "r"] and frame.index.name == "t"
+
+
+def test_polls_send_the_last_etag_and_a_304_keeps_the_last_view():
+    view = {"id": "j1", "state": "running", "progress": 0.5}
+    c, session, _ = client_with([FakeResponse(200, view, {"ETag": '"j1-7"'}), FakeResponse(304)])
+    assert c.job("j1").view == view
+    again = c.job("j1")
+    assert session.calls[1][2]["headers"]["If-None-Match"] == '"j1-7"'
+    assert again.view == view
