@@ -165,7 +165,8 @@ def _check(kernel, y0, t0, t1, t_out, o):
         raise ValueError("t_span must be two finite times with t_end > t_start")
     if len(y0) != kernel.n:
         raise ValueError(f"y0 has {len(y0)} values, the model has {kernel.n} states")
-    if len(t_out) and (np.any(np.diff(t_out) < 0) or not np.all(np.isfinite(t_out))):
+    if len(t_out) > 1 and not (t_out[1:] >= t_out[:-1]).all() or \
+            not np.isfinite(t_out).all():
         raise ValueError("t_out must be finite and non-decreasing")
     if not (o.rtol > 0 and np.all(np.asarray(o.atol) >= 0)):
         raise ValueError("rtol must be positive and atol non-negative")
@@ -230,30 +231,33 @@ def _loop(kernel, run, monitor, o, secs, started):
 
 def _message(outcome, run, o, kernel):
     t = float(run.fs[S.F_T])
-    msg = {
-        SUCCEEDED: "integrated to the end of the span",
-        TOLERANCE_UNREACHABLE: (f"rtol={o.rtol:g} is below what double precision can deliver; "
-                                f"use rtol >= {MIN_RTOL:g}"),
-        STEP_UNDERFLOW: (f"the step size fell to the round-off limit at t={t:.6g}; the solution "
-                         "may blow up or the model may be discontinuous there: check the model "
-                         "near this time or loosen the tolerances"),
-        NEWTON_FAILURE: (f"the implicit method's Newton iterations kept failing at t={t:.6g}; "
-                         "the model may be discontinuous or singular there: check the "
-                         "expressions and initial values, or try another method"),
-        STEP_LIMIT: (f"the step limit ({o.max_steps}) was reached at t={t:.6g}: raise max_steps, "
-                     "loosen the tolerances, or use method 'auto' if the problem is stiff"),
-        TIME_LIMIT: (f"the wall-time limit ({o.max_wall_seconds:g} s) was reached at t={t:.6g}: "
-                     "raise max_wall_seconds or loosen the tolerances"),
-        CANCELLED: f"cancelled on request at t={t:.6g}",
-        NON_FINITE: (f"the model produced non-finite values (NaN or infinity) near "
-                     f"t={float(run.fs[S.F_T_BAD]):.6g}; the last good state is at t={t:.6g}: "
-                     "check for division by zero, logarithms or roots of negative values, "
-                     "or overflow"),
-    }[outcome]
-    term = int(run.iw[S.I_TERMINAL])
-    if outcome == SUCCEEDED and term:
-        msg = f"stopped at terminal event {term - 1} at t={t:.6g}"
-    return msg
+    if outcome == SUCCEEDED:
+        term = int(run.iw[S.I_TERMINAL])
+        return f"stopped at terminal event {term - 1} at t={t:.6g}" if term else \
+            "integrated to the end of the span"
+    if outcome == TOLERANCE_UNREACHABLE:
+        return (f"rtol={o.rtol:g} is below what double precision can deliver; "
+                f"use rtol >= {MIN_RTOL:g}")
+    if outcome == STEP_UNDERFLOW:
+        return (f"the step size fell to the round-off limit at t={t:.6g}; the solution "
+                "may blow up or the model may be discontinuous there: check the model "
+                "near this time or loosen the tolerances")
+    if outcome == NEWTON_FAILURE:
+        return (f"the implicit method's Newton iterations kept failing at t={t:.6g}; "
+                "the model may be discontinuous or singular there: check the "
+                "expressions and initial values, or try another method")
+    if outcome == STEP_LIMIT:
+        return (f"the step limit ({o.max_steps}) was reached at t={t:.6g}: raise max_steps, "
+                "loosen the tolerances, or use method 'auto' if the problem is stiff")
+    if outcome == TIME_LIMIT:
+        return (f"the wall-time limit ({o.max_wall_seconds:g} s) was reached at t={t:.6g}: "
+                "raise max_wall_seconds or loosen the tolerances")
+    if outcome == CANCELLED:
+        return f"cancelled on request at t={t:.6g}"
+    return (f"the model produced non-finite values (NaN or infinity) near "
+            f"t={float(run.fs[S.F_T_BAD]):.6g}; the last good state is at t={t:.6g}: "
+            "check for division by zero, logarithms or roots of negative values, "
+            "or overflow")
 
 
 def _solution(kernel, run, stop, o, conservation, secs, started):
