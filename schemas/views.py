@@ -17,6 +17,7 @@ class JobViewSchema(Schema):
     state = fields.String(metadata={"description": STATE_DESCRIPTION})
     progress = fields.Float(metadata={"description": "fraction of the time span integrated, 0..1"})
     label = fields.String(attribute="title")
+    owner = fields.String(metadata={"description": "owner of the API key that created the job"})
     method = fields.String()
     created_at = fields.String(metadata={"description": "RFC 3339 UTC"})
     started_at = fields.String(allow_none=True)

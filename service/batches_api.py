@@ -17,6 +17,7 @@ from schemas.batch import BatchSpecSchema, design_of, member_count
 from schemas.job import output_times
 from service import batch_tables as tables
 from service.auth import current_owner
+from service.idempotency import idempotent
 from service.jsonbody import read_json_object
 from service.problems import ApiProblem
 from service.results import CAUTION
@@ -84,10 +85,15 @@ def _design_json(design: dict) -> dict:
 
 @bp.post("/batches")
 def create_batch():
+    body = read_json_object()
+    return idempotent(lambda: _create(body))
+
+
+def _create(body: dict):
     settings = _ctx().settings
     schema = BatchSpecSchema(max_members=settings.max_batch_members,
                              max_trajectory_values=settings.max_batch_trajectory_values)
-    spec = schema.load(read_json_object())
+    spec = schema.load(body)
     total = member_count(spec)
     design = _design_json(design_of(spec))
     columns = {"values": [sampling.column_label(t, n) for t, n in design["columns"]],

@@ -5,13 +5,13 @@ from datetime import datetime, timezone
 
 from flask import Blueprint, Response, current_app, json, request, url_for
 
-from jobs import guards
 from jobs.keys import STATES, is_job_id
 from jobs.store import JobRecord, make_etag
 from schemas.job import JobSpecSchema, describe_model
 from schemas.views import CreatedSchema, JobPageSchema, JobViewSchema
 from service import results
 from service.auth import current_owner
+from service.idempotency import idempotent
 from service.jsonbody import read_json_object
 from service.problems import ApiProblem
 
@@ -34,13 +34,17 @@ def _links(job_id: str) -> dict:
             "cancel": url_for("jobs.cancel_job", job_id=job_id)}
 
 
-def _view(rec: JobRecord) -> dict:
-    return JobViewSchema().dump({
+def _view_data(rec: JobRecord) -> dict:
+    return {
         "id": rec.id, "state": rec.state, "progress": rec.progress, "title": rec.title,
         "method": rec.method, "created_at": _iso(rec.created), "started_at": _iso(rec.started),
         "finished_at": _iso(rec.finished), "attempt": rec.attempt,
         "cancel_requested": rec.cancel_requested, "outcome": rec.outcome, "message": rec.message,
-        "digest": rec.summary, "links": _links(rec.id)})
+        "digest": rec.summary, "owner": rec.owner, "links": _links(rec.id)}
+
+
+def _view(rec: JobRecord) -> dict:
+    return JobViewSchema().dump(_view_data(rec))
 
 
 def _json(body, status: int = 200, headers: dict | None = None) -> Response:
@@ -61,37 +65,7 @@ def _find(job_id: str) -> JobRecord:
 @bp.post("/jobs")
 def create_job():
     body = read_json_object()
-    key = request.headers.get("Idempotency-Key")
-    if key is None:
-        return _create(body)
-    return idempotent(key, lambda: _create(body))
-
-
-def idempotent(key: str, create) -> Response:
-    """Run ``create`` once per (owner, Idempotency-Key); replay its reply on retries."""
-    if not (1 <= len(key) <= 200 and key.isascii() and key.isprintable()):
-        raise ApiProblem(400, "Bad Idempotency-Key", "use 1-200 printable ASCII characters (a UUID is ideal)")
-    r, keys, owner = _ctx().store.r, _ctx().store.keys, current_owner()
-    status, reply = guards.idempotency_begin(r, keys, owner, key, guards.fingerprint(request.get_data()))
-    if status == "mismatch":
-        raise ApiProblem(422, "Idempotency-Key reused", "this Idempotency-Key was used with a different "
-                         "body; use a new key for a new request", kind="idempotency-mismatch")
-    if status == "in_flight":
-        raise ApiProblem(409, "Request in progress", "the first request with this Idempotency-Key is "
-                         "still being processed; retry shortly", kind="idempotency-in-flight",
-                         headers={"Retry-After": "1"})
-    if status == "replay":
-        return Response(reply.body, status=reply.status, mimetype="application/json",
-                        headers={**reply.headers, "Idempotent-Replayed": "true"})
-    try:
-        resp = create()
-    except Exception:
-        guards.idempotency_abandon(r, keys, owner, key)
-        raise
-    guards.idempotency_finish(r, keys, owner, key, guards.IdempotentReply(
-        resp.status_code, resp.get_data(as_text=True),
-        {k: v for k, v in resp.headers.items() if k in ("Location", "Retry-After", "ETag")}))
-    return resp
+    return idempotent(lambda: _create(body))
 
 
 def _create(body: dict) -> Response:
@@ -148,7 +122,7 @@ def list_jobs():
     if next_cursor:
         args = {"limit": limit, "cursor": next_cursor, **({"state": state} if state else {})}
         headers["Link"] = f'<{url_for("jobs.list_jobs", **args)}>; rel="next"'
-    return _json(JobPageSchema().dump({"items": [_view(r) for r in records], "next_cursor": next_cursor}),
+    return _json(JobPageSchema().dump({"items": [_view_data(r) for r in records], "next_cursor": next_cursor}),
                  200, headers)
 
 

@@ -110,7 +110,7 @@ def test_a_retry_while_the_first_is_in_flight_is_409(client, store):
     from jobs import guards
 
     body = json.dumps(DECAY).encode()
-    guards.idempotency_begin(store.r, store.keys, "local", "k2", guards.fingerprint(body))
+    guards.idempotency_begin(store.r, store.keys, "local", "k2", guards.fingerprint(b"/v1/jobs\n" + body))
     r = client.post("/v1/jobs", data=body, content_type="application/json", headers={"Idempotency-Key": "k2"})
     assert r.status_code == 409 and r.headers["Retry-After"]
 
@@ -138,3 +138,12 @@ def test_concurrent_identical_submissions_with_one_key_make_one_job(app, client)
         t.join()
     assert len(ids) == 1 and set(codes) <= {202, 409}
     assert len(client.get("/v1/jobs?limit=200").get_json()["items"]) == 1
+
+
+def test_one_idempotency_key_cannot_create_a_job_and_then_a_batch(client):
+    assert client.post("/v1/jobs", json=DECAY, headers={"Idempotency-Key": "k5"}).status_code == 202
+    batch = {"base": DECAY, "members": [{"parameters": {"k": 1.0}}], "summaries": [{"kind": "final", "of": "a"}]}
+    assert client.post("/v1/batches", json=batch, headers={"Idempotency-Key": "k5"}).status_code == 422
+    first = client.post("/v1/batches", json=batch, headers={"Idempotency-Key": "k6"})
+    again = client.post("/v1/batches", json=batch, headers={"Idempotency-Key": "k6"})
+    assert first.status_code == again.status_code == 202 and first.get_json()["id"] == again.get_json()["id"]

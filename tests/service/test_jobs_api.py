@@ -67,6 +67,8 @@ def test_listing_pages_with_a_link_header_and_filters_by_state(client):
     assert 'rel="next"' in r.headers["Link"]
     nxt = r.headers["Link"].split(">")[0].lstrip("<")
     assert [j["id"] for j in client.get(nxt).get_json()["items"]] == [ids[0]]
+    assert {j["label"] for j in r.get_json()["items"]} == {"first-order decay"}
+    assert {j["owner"] for j in r.get_json()["items"]} == {"local"}
     cancelled = client.get("/v1/jobs?state=cancelled").get_json()["items"]
     assert [j["id"] for j in cancelled] == [ids[0]]
 
