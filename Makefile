@@ -7,10 +7,10 @@ export NUMBA_CACHE_DIR := $(CURDIR)/var/numba-cache
 
 .PHONY: run test install bench bench-quick clean
 
-$(STAMP): pyproject.toml
+$(STAMP): pyproject.toml client/pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
-	$(BIN)/pip install --quiet -e '.[test]'
+	$(BIN)/pip install --quiet -e '.[test]' -e client/
 	touch $(STAMP)
 
 install: $(STAMP)

@@ -96,3 +96,19 @@ def client(app):
 
 def example_path(*parts: str) -> Path:
     return ROOT.joinpath("examples", *parts)
+
+
+try:  # the client package: installed (pip install -e client/), or from the source tree
+    import stifflane_client  # noqa: F401
+except ImportError:
+    sys.path.insert(0, str(ROOT / "client"))
+
+
+@pytest.fixture(scope="session")
+def stack(redis_server):
+    """One live stack (API and worker processes) shared by every test that needs one."""
+    from tests.stack import Stack
+
+    s = Stack(redis_server.url)
+    yield s
+    s.stop()

@@ -14,7 +14,7 @@ from celery import Celery
 
 from jobs.queue import SOLVE_TASK
 from tests.conftest import RedisServer
-from tests.e2e.conftest import Stack
+from tests.stack import Stack
 from tests.e2e.test_stack import LONG, linear_spec, oscillator_span
 
 pytestmark = pytest.mark.e2e

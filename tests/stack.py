@@ -1,4 +1,4 @@
-"""A live stack: gunicorn API and Celery worker processes on the session's Redis."""
+"""A live stack for tests: gunicorn API and Celery worker processes on a given Redis."""
 from __future__ import annotations
 
 import os
@@ -8,7 +8,6 @@ import sys
 import time
 import uuid
 
-import pytest
 import requests
 
 from cli.main import api_command, worker_command
@@ -88,10 +87,3 @@ class Stack:
                 return view
             time.sleep(0.1)
         raise AssertionError(f"job {job_id} still {view['state']} after {timeout} s")
-
-
-@pytest.fixture(scope="session")
-def stack(redis_server):
-    s = Stack(redis_server.url)
-    yield s
-    s.stop()
