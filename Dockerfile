@@ -12,8 +12,8 @@ COPY jobs jobs
 COPY cli cli
 COPY examples examples
 RUN pip install --no-cache-dir .
-ENV NUMBA_CACHE_DIR=/var/cache/stifflane-numba PYTHONUNBUFFERED=1
-RUN useradd --create-home stifflane && mkdir -p $NUMBA_CACHE_DIR && chown stifflane $NUMBA_CACHE_DIR
+ENV STIFFLANE_NUMBA_CACHE=/var/cache/stifflane-numba PYTHONUNBUFFERED=1
+RUN useradd --create-home stifflane && mkdir -p $STIFFLANE_NUMBA_CACHE && chown stifflane $STIFFLANE_NUMBA_CACHE
 USER stifflane
 EXPOSE 8750
 CMD ["stifflane", "api", "--host", "0.0.0.0"]

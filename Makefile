@@ -3,7 +3,6 @@ PYTHON ?= python3
 VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
-export NUMBA_CACHE_DIR := $(CURDIR)/var/numba-cache
 
 .PHONY: run test install bench bench-quick clean
 

@@ -45,7 +45,11 @@ def _env(redis_url: str | None = None) -> dict:
     env = dict(os.environ)
     if redis_url:
         env["REDIS_URL"] = redis_url
-    env.setdefault("NUMBA_CACHE_DIR", str(ROOT / "var" / "numba-cache"))
+    if "NUMBA_CACHE_DIR" not in os.environ:  # main() sets it: one folder per engine version
+        from engine.cache import configure
+
+        configure(ROOT / "var" / "numba-cache")
+    env["NUMBA_CACHE_DIR"] = os.environ["NUMBA_CACHE_DIR"]
     env.setdefault("OPENBLAS_NUM_THREADS", "1")  # one core per worker process; no BLAS thread fights
     env["PYTHONPATH"] = os.pathsep.join(filter(None, [str(ROOT), env.get("PYTHONPATH")]))
     return env
@@ -293,6 +297,9 @@ def parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    from engine.cache import configure
+
+    configure(ROOT / "var" / "numba-cache")  # before anything imports numba
     args = parser().parse_args(argv)
     return args.func(args) or 0
 

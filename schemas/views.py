@@ -48,6 +48,8 @@ class ResultSchema(Schema):
     times = fields.List(fields.Float())
     states = fields.Dict(keys=fields.String(), values=fields.List(fields.Float()))
     derived = fields.Dict(keys=fields.String(), values=fields.List(fields.Float()))
+    events = fields.List(fields.Dict(), metadata={
+        "description": "event crossings located during the run: name, t, states there"})
     report = fields.Dict(metadata={"description": "full solver diagnostics (stiffness report)"})
     model = fields.Dict(metadata={"description": "prepared-model facts: names, stoichiometry, conservation laws"})
     caution = fields.String()

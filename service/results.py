@@ -42,7 +42,7 @@ def as_json(job_id: str, blob: bytes) -> dict:
         "times": finite(t),
         "states": {name: finite(y[:, i]) for i, name in enumerate(meta["state_names"])},
         "derived": {name: finite(aux[:, i]) for i, name in enumerate(meta["aux_names"])},
-        "report": meta.get("report", {}), "model": meta.get("model", {}), "caution": CAUTION,
+        "events": meta.get("events", []), "report": meta.get("report", {}), "model": meta.get("model", {}), "caution": CAUTION,
     })
 
 

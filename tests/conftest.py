@@ -14,8 +14,10 @@ import pytest
 import redis
 
 ROOT = Path(__file__).resolve().parent.parent
-os.environ.setdefault("NUMBA_CACHE_DIR", str(ROOT / "var" / "numba-cache"))
 sys.path.insert(0, str(ROOT))
+from engine.cache import configure  # noqa: E402
+
+configure(ROOT / "var" / "numba-cache")  # the folder `stifflane warm` filled, before numba loads
 
 from cli.redis_server import redis_binary  # noqa: E402
 from jobs.settings import Settings  # noqa: E402

@@ -10,7 +10,6 @@ from __future__ import annotations
 
 import logging
 import threading
-import time
 import traceback
 from collections import OrderedDict
 from dataclasses import dataclass
@@ -24,7 +23,8 @@ from engine.model import PreparedModel, prepare
 from jobs import blob as result_blob
 from jobs.batch_store import BatchStore
 from schemas.batch import BatchSpecSchema
-from schemas.job import atol_vector, output_times
+from schemas.job import output_times
+from worker.options import solver_options
 from worker.run_job import Heartbeat
 
 log = logging.getLogger(__name__)
@@ -56,12 +56,7 @@ def make_plan(spec: dict, design: dict) -> BatchPlan:
     out_times = output_times(base["span"], base["output"]) if data["trajectories"] else np.zeros(0)
     grid = summaries.grid(base["span"], data["summary_grid"]["count"], data["summary_grid"]["spacing"],
                           [*extra, *out_times.tolist()])
-    tol, limits = base["tolerance"], base["limits"]
-    options = SolverOptions(method=base["method"], rtol=tol["rtol"],
-                            atol=atol_vector(tol["atol"], model.state_names),
-                            max_steps=limits["max_steps"], max_wall_seconds=limits["max_wall_seconds"],
-                            nonnegative=base["nonnegative"], event_directions=model.event_directions,
-                            event_terminal=model.event_terminal, diagnostics="counts")
+    options = solver_options(base, model, diagnostics="counts")
     p0, y0 = model.with_overrides(base["parameters"], base["initial"])
     model = _with_base(model, p0, y0)
     return BatchPlan(model=model, design=design, span=tuple(base["span"]), grid=grid, options=options,

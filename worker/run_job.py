@@ -11,14 +11,14 @@ import threading
 import time
 import traceback
 
-import numpy as np
 from marshmallow import ValidationError
 
-from engine.integrate import CANCELLED, SUCCEEDED, SolverOptions, integrate
+from engine.integrate import CANCELLED, SUCCEEDED, integrate
 from engine.model import ModelError, prepare
 from jobs import blob as result_blob
 from jobs.store import JobStore
-from schemas.job import JobSpecSchema, atol_vector, output_times
+from schemas.job import JobSpecSchema, output_times
+from worker.options import solver_options
 
 log = logging.getLogger(__name__)
 
@@ -91,14 +91,8 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         prepare_seconds = time.perf_counter() - t_prep
         p, y0 = prepared.with_overrides(spec["parameters"], spec["initial"])
         times = output_times(spec["span"], spec["output"])
-        tol, limits = spec["tolerance"], spec["limits"]
-        options = SolverOptions(method=spec["method"], rtol=tol["rtol"],
-                                atol=atol_vector(tol["atol"], prepared.state_names),
-                                max_steps=limits["max_steps"],
-                                # end inside the integrator, with diagnostics, before Celery's soft limit
-                                max_wall_seconds=min(limits["max_wall_seconds"],
-                                                     max(store.settings.soft_time_limit - 30, 1)),
-                                nonnegative=spec["nonnegative"])
+        # end inside the integrator, with diagnostics, before Celery's soft limit
+        options = solver_options(spec, prepared, wall_cap=max(store.settings.soft_time_limit - 30, 1))
         sol = integrate(prepared.kernel, p, y0, tuple(spec["span"]), times, options,
                         monitor=beat.monitor, conservation=prepared.conservation)
     except (ValidationError, ModelError) as e:
@@ -108,8 +102,10 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         return "failed", "internal_error", f"internal error while solving ({type(e).__name__}: {e})", {}, None
     state = {SUCCEEDED: "succeeded", CANCELLED: "cancelled"}.get(sol.outcome, "failed")
     summary = result_blob.json_safe(digest(sol.report, prepare_seconds) | {"t_reached": sol.t_reached})
+    events = [{"name": prepared.event_names[int(i)], "t": float(t), "states": dict(zip(prepared.state_names, y))}
+              for i, t, y in zip(sol.event_index, sol.event_t, sol.event_y)]
     meta = {"outcome": sol.outcome, "message": sol.message, "state_names": list(prepared.state_names),
-            "aux_names": list(prepared.aux_names), "report": sol.report,
+            "aux_names": list(prepared.aux_names), "report": sol.report, "events": events,
             "model": prepared.summary()}
     blob = result_blob.encode(meta, {"t": sol.t, "y": sol.y, "aux": sol.aux})
     return state, sol.outcome, sol.message, summary, blob

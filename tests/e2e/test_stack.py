@@ -117,3 +117,16 @@ def test_kill_9_of_the_worker_mid_job_then_restart_finishes_the_job_once(stack):
     # exactly one terminal write (the fenced finish counts its writes)
     db = redis.Redis.from_url(stack.env["REDIS_URL"])
     assert int(db.hget(f"{stack.env['STIFFLANE_KEY_PREFIX']}:job:{job_id}", "writes")) == 1
+
+
+def test_events_located_in_a_job_come_back_with_the_result(stack):
+    # first-order decay a' = -k a, a(0) = 1: a falls through 0.5 at t = ln 2 / k (analytic)
+    k = 3.0
+    spec = {"model": {"states": {"a": 1.0}, "parameters": {"k": k}, "ddt": {"a": "-k*a"},
+                      "events": [{"name": "half_gone", "when": "a - 0.5", "direction": "falling"}]},
+            "span": [0.0, 2.0], "output": {"count": 5}, "tolerance": {"rtol": 1e-8, "atol": 1e-12}}
+    job_id = stack.submit(spec)
+    assert stack.wait(job_id)["state"] == "succeeded"
+    events = requests.get(f"{stack.base}/v1/jobs/{job_id}/result", timeout=10).json()["events"]
+    assert [e["name"] for e in events] == ["half_gone"]
+    assert abs(events[0]["t"] - np.log(2) / k) < 1e-6
