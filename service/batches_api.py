@@ -19,6 +19,7 @@ from service import batch_tables as tables
 from service.auth import current_owner
 from service.idempotency import idempotent
 from service.jsonbody import read_json_object
+from service.paging import next_link, page_args
 from service.problems import ApiProblem
 from service.results import CAUTION
 
@@ -110,21 +111,9 @@ def _create(body: dict):
 
 @bp.get("/batches")
 def list_batches():
-    try:
-        limit = int(request.args.get("limit", 50))
-        if not 1 <= limit <= 200:
-            raise ValueError
-    except ValueError:
-        raise ApiProblem(400, "Bad Request", "limit must be an integer from 1 to 200",
-                         errors=[{"pointer": "/query/limit", "detail": "integer from 1 to 200"}])
-    cursor = request.args.get("cursor")
-    if cursor is not None and not is_job_id(cursor):
-        raise ApiProblem(400, "Bad Request", "cursor must be a value from a previous page",
-                         errors=[{"pointer": "/query/cursor", "detail": "not a cursor"}])
+    limit, cursor = page_args()
     records, next_cursor = _store().list(current_owner(), limit, cursor)
-    headers = {}
-    if next_cursor:
-        headers["Link"] = f'<{url_for("batches.list_batches", limit=limit, cursor=next_cursor)}>; rel="next"'
+    headers = next_link("batches.list_batches", limit, next_cursor)
     return _json({"items": [_view(r) for r in records], "next_cursor": next_cursor}, 200, headers)
 
 

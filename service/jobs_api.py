@@ -13,6 +13,7 @@ from service import results
 from service.auth import current_owner
 from service.idempotency import idempotent
 from service.jsonbody import read_json_object
+from service.paging import next_link, page_args
 from service.problems import ApiProblem
 
 bp = Blueprint("jobs", __name__, url_prefix="/v1")
@@ -106,22 +107,9 @@ def list_jobs():
     if state is not None and state not in STATES:
         raise ApiProblem(400, "Bad Request", f"state must be one of {', '.join(STATES)}",
                          errors=[{"pointer": "/query/state", "detail": f"unknown state {state!r}"}])
-    try:
-        limit = int(request.args.get("limit", 50))
-        if not 1 <= limit <= 200:
-            raise ValueError
-    except ValueError:
-        raise ApiProblem(400, "Bad Request", "limit must be an integer from 1 to 200",
-                         errors=[{"pointer": "/query/limit", "detail": "integer from 1 to 200"}])
-    cursor = request.args.get("cursor")
-    if cursor is not None and not is_job_id(cursor):
-        raise ApiProblem(400, "Bad Request", "cursor must be a value from a previous page's Link header",
-                         errors=[{"pointer": "/query/cursor", "detail": "not a cursor"}])
+    limit, cursor = page_args()
     records, next_cursor = _ctx().store.list(current_owner(), state, limit, cursor)
-    headers = {}
-    if next_cursor:
-        args = {"limit": limit, "cursor": next_cursor, **({"state": state} if state else {})}
-        headers["Link"] = f'<{url_for("jobs.list_jobs", **args)}>; rel="next"'
+    headers = next_link("jobs.list_jobs", limit, next_cursor, state=state)
     return _json(JobPageSchema().dump({"items": [_view_data(r) for r in records], "next_cursor": next_cursor}),
                  200, headers)
 
