@@ -21,7 +21,7 @@ ORDER = 5
 STAGE_EVALS = 6
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def attempt(kernel, p, regs, t, y, h, K, ynew, ysti, err_vec, atol, rtol):
     """Try one step of size h. Returns (error norm, spectral-radius estimate)."""
     n = y.shape[0]
@@ -58,7 +58,7 @@ def attempt(kernel, p, regs, t, y, h, K, ynew, ysti, err_vec, atol, rtol):
     return err, rho
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def prepare_dense(y, ynew, h, K, cont):
     """Fill cont[0:5] with the continuous-extension coefficients of the step."""
     n = y.shape[0]
@@ -75,7 +75,7 @@ def prepare_dense(y, ynew, h, K, cont):
         cont[4, i] = h * acc
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def dense(cont, theta, out):
     """y(t_old + theta h) from the coefficients of :func:`prepare_dense`."""
     th1 = 1.0 - theta
@@ -84,7 +84,7 @@ def dense(cont, theta, out):
             cont[2, i] + theta * (cont[3, i] + th1 * cont[4, i])))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def step_factor(err, err_old, last_rejected):
     """PI controller of the published DOPRI5 code (beta = 0.04, safety 0.9).
 

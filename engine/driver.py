@@ -10,9 +10,10 @@ also returns right after a method switch (so time per method can be measured).
 import numpy as np
 from numba import njit
 
-from engine import switching, vm
+from engine import dopri5, radau5, rodas, switching, vm
 from engine.errors_norm import initial_step
-from engine.events import dense_eval, scan
+from engine.linalg import copy
+from engine.events import scan
 from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ERR_OLD,
                           F_EXPL_NEEDED, F_H, F_H_JCHECK, F_H_LAST, F_H_OLD, F_HEXP, F_HMAX,
                           F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_OLD, F_TEND, I_ACCEPTED,
@@ -32,7 +33,7 @@ EPS = 2.220446049250313e-16
 JAC_CHECK_EVERY = 20  # auto mode: accepted explicit steps between Jacobian checks
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
     """f(t0, y0), event values at t0 and the starting step (if fs[F_H] <= 0).
 
@@ -44,7 +45,7 @@ def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
     for i in range(y.shape[0]):
         if not np.isfinite(f0[i]) or not np.isfinite(y[i]):
             return False
-    V[V_K, :] = f0
+    copy(f0, V[V_K])
     if gv.shape[1] > 0:
         vm.events(kernel, t, y, p, regs, gv[0])
     if fs[F_H] <= 0.0:
@@ -54,7 +55,7 @@ def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
     return True
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def _history(hist, iw, t, h, method, h_exp):
     """Keep at most hist.shape[0] rows, thinning by two when full."""
     if iw[I_ACCEPTED] % iw[I_HIST_STRIDE] != 0:
@@ -63,7 +64,7 @@ def _history(hist, iw, t, h, method, h_exp):
     if k == hist.shape[0]:
         half = k // 2
         for j in range(half):
-            hist[j, :] = hist[2 * j + 1, :]
+            copy(hist[2 * j + 1], hist[j])
         iw[I_HIST_N] = half
         iw[I_HIST_STRIDE] *= 2
         k = half
@@ -76,7 +77,27 @@ def _history(hist, iw, t, h, method, h_exp):
     iw[I_HIST_N] = k + 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=True)
+def _scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir, ev_term, ev_t, ev_i,
+          ev_y, counts, ytmp):
+    """engine.events.scan, compiled with the runtime's allocator (it may need it);
+    the functions around it run without (see engine.vm)."""
+    return scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir, ev_term, ev_t,
+                ev_i, ev_y, counts, ytmp)
+
+
+@njit(cache=True, nogil=True, _nrt=False)
+def _dense(method, cont, x, out):
+    """State at fraction x of the step from the method's interpolant."""
+    if method == DOPRI5:
+        dopri5.dense(cont, x, out)
+    elif method == RADAU5:
+        radau5.dense(cont, x, out)
+    else:
+        rodas.dense(cont, x, out)
+
+
+@njit(cache=True, nogil=True, _nrt=False)
 def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev_dir,
             ev_term, ev_t, ev_i, ev_y, hist, h):
     """Book an accepted step (y still the old state, V[V_YNEW] the new one).
@@ -90,16 +111,18 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
         for i in range(y.shape[0]):
             if ynew[i] < 0.0 and V[V_NNMASK, i] != 0.0:
                 ynew[i] = 0.0
-    t_stop, k_stop = scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir,
-                          ev_term, ev_t, ev_i, ev_y, iw[I_NEV_LOG:I_NEV_LOG + 2],
-                          V[V_YEV])
+    t_stop, k_stop = t_new, -1
+    if gv.shape[1] > 0:  # a call with many array arguments costs even when it returns at once
+        t_stop, k_stop = _scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir,
+                               ev_term, ev_t, ev_i, ev_y, iw[I_NEV_LOG:I_NEV_LOG + 2],
+                               V[V_YEV])
     m = t_out.shape[0]
     k = iw[I_IOUT]
     while k < m and t_out[k] <= t_stop:
         if t_out[k] == t_new:
-            y_out[k, :] = ynew
+            copy(ynew, y_out[k])
         else:
-            dense_eval(method, cont, t_old, h, t_out[k], y_out[k])
+            _dense(method, cont, (t_out[k] - t_old) / h, y_out[k])
             if iw[I_NONNEG]:  # the interpolant may dip below zero between points
                 for i in range(y.shape[0]):
                     if y_out[k, i] < 0.0 and V[V_NNMASK, i] != 0.0:
@@ -119,17 +142,17 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
     fs[F_T_OLD] = t_old
     fs[F_H_LAST] = h
     if k_stop >= 0:
-        y[:] = V[V_YEV]
+        copy(V[V_YEV], y)
         fs[F_T] = t_stop
         iw[I_TERMINAL] = k_stop + 1
         iw[I_STATUS] = DONE
         return True
-    y[:] = ynew
+    copy(ynew, y)
     fs[F_T] = t_new
     return False
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
     """Confirm a large stage estimate of h*rho with the Jacobian at the step start."""
     if jv.shape[0] == 0 or J.shape[0] != y.shape[0]:
@@ -145,7 +168,7 @@ def _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
     return False
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def _switch(fs, iw, swlog, to, reason):
     """Change method; reset the controller memory; ask Python for a return."""
     iw[I_NSWITCH] = switching.log_switch(swlog, iw[I_NSWITCH], fs[F_T], iw[I_METHOD], to,
@@ -163,7 +186,7 @@ def _switch(fs, iw, swlog, to, reason):
     iw[I_RETURN] = 1
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
     """Work after an accepted step: f at the new point, Jacobian refresh,
     and the switching decision in automatic mode."""
@@ -175,8 +198,8 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
             vm.rhs(kernel, t, y, p, regs, f0)  # state may have been clipped
             iw[I_NFEV] += 1
         else:
-            f0[:] = V[V_K + 6]
-        V[V_K, :] = f0
+            copy(V[V_K + 6], f0)
+        copy(f0, V[V_K])
     else:
         vm.rhs(kernel, t, y, p, regs, f0)
         iw[I_NFEV] += 1
@@ -206,10 +229,10 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
                                             iw[I_STEPS_IN_METHOD]):
             _switch(fs, iw, swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
             fs[F_H] = min(fs[F_H], 0.5 * fs[F_HEXP])
-            V[V_K, :] = f0  # first-same-as-last stage of the explicit method
+            copy(f0, V[V_K])  # first-same-as-last stage of the explicit method
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc, pivc,
             cbuf, t_out, y_out, gv, ev_dir, ev_term, ev_t, ev_i, ev_y, swlog, hist,
             budget):
@@ -220,7 +243,7 @@ def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         t = fs[F_T]
         k = iw[I_IOUT]
         while k < m and t_out[k] <= t:
-            y_out[k, :] = y
+            copy(y, y_out[k])
             k += 1
         iw[I_IOUT] = k
         tend = fs[F_TEND]

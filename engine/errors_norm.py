@@ -10,7 +10,7 @@ from numba import njit
 from engine import vm
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def err_norm(e, y, ynew, atol, rtol):
     """RMS of e / (atol + rtol * max(|y|, |ynew|)); NaN propagates."""
     n = e.shape[0]
@@ -22,7 +22,7 @@ def err_norm(e, y, ynew, atol, rtol):
     return math.sqrt(s / max(n, 1))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def err_norm_scaled(e, scale):
     """RMS of e / scale."""
     n = e.shape[0]
@@ -33,7 +33,7 @@ def err_norm_scaled(e, scale):
     return math.sqrt(s / max(n, 1))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def initial_step(kernel, p, regs, t, y, f0, atol, rtol, order, hmax, y1, f1):
     """Starting step of Hairer, Norsett & Wanner I, sec. II.4 (p. 169).
 

@@ -8,7 +8,7 @@ run inside the compiled step loop. Large sparse systems use SuperLU instead
 from numba import njit
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def lu_factor(a, piv):
     """In-place LU of ``a`` (row pivots into ``piv``); returns False if singular."""
     n = a.shape[0]
@@ -39,7 +39,7 @@ def lu_factor(a, piv):
     return True
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def lu_solve(a, piv, b):
     """Solve in place: ``b`` <- A^-1 b using the factors from :func:`lu_factor`."""
     n = a.shape[0]
@@ -61,7 +61,7 @@ def lu_solve(a, piv, b):
         b[i] = s / a[i, i]
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def clu_factor(a, piv):
     """Complex in-place LU with partial pivoting (same contract as lu_factor)."""
     n = a.shape[0]
@@ -92,7 +92,7 @@ def clu_factor(a, piv):
     return True
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def clu_solve(a, piv, b):
     """Complex in-place solve with the factors from :func:`clu_factor`."""
     n = a.shape[0]
@@ -114,7 +114,7 @@ def clu_solve(a, piv, b):
         b[i] = s / a[i, i]
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def shifted(J, shift, a):
     """a <- shift * I - J (real)."""
     n = J.shape[0]
@@ -124,7 +124,7 @@ def shifted(J, shift, a):
         a[i, i] += shift
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def cshifted(J, shift_re, shift_im, a):
     """a <- (shift_re + i shift_im) * I - J (complex)."""
     n = J.shape[0]
@@ -132,3 +132,11 @@ def cshifted(J, shift_re, shift_im, a):
         for j in range(n):
             a[i, j] = -J[i, j]
         a[i, i] += complex(shift_re, shift_im)
+
+
+@njit(cache=True, nogil=True, _nrt=False)
+def copy(src, dst):
+    """dst[:] = src for 1-D arrays (an array-to-array slice assignment needs the
+    runtime's allocator for a possible overlap copy, which these loops run without)."""
+    for i in range(dst.shape[0]):
+        dst[i] = src[i]

@@ -23,7 +23,7 @@ NEWTON_MAXITER = 7
 ORDER = 3  # order used for the starting step (that of the error estimate)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def factor(J, h, LU, piv, LUc, pivc):
     """Factor MU_REAL/h I - J and MU_COMPLEX/h I - J. False if singular."""
     shifted(J, RA_MU_REAL / h, LU)
@@ -32,7 +32,7 @@ def factor(J, h, LU, piv, LUc, pivc):
     return ok and clu_factor(LUc, pivc)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def predict(cont, have_cont, t_old, h_old, t, h, y, Z):
     """Starting guess for the stage increments Z from the last interpolant."""
     n = y.shape[0]
@@ -46,7 +46,7 @@ def predict(cont, have_cont, t_old, h_old, t, h, y, Z):
             Z[s, i] = v - y[i]
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc, Z, W, F, ytmp, cbuf,
            scale, tol):
     """Simplified Newton on the collocation system.
@@ -106,7 +106,7 @@ def newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc, Z, W, F, ytmp, cbuf,
     return False, NEWTON_MAXITER, rate, nfev
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def error(kernel, p, regs, t, y, f0, h, LU, piv, Z, ynew, err_vec, ytmp, atol, rtol,
           refine):
     """Embedded error estimate; ``refine`` applies one extra filtering
@@ -133,7 +133,7 @@ def error(kernel, p, regs, t, y, f0, h, LU, piv, Z, ynew, err_vec, ytmp, atol, r
     return err, nfev
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def prepare_dense(y, Z, cont):
     """cont[0] = y_old, cont[1:4] = Z^T P (collocation polynomial)."""
     n = y.shape[0]
@@ -143,13 +143,13 @@ def prepare_dense(y, Z, cont):
             cont[1 + k, i] = Z[0, i] * RA_P[0, k] + Z[1, i] * RA_P[1, k] + Z[2, i] * RA_P[2, k]
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def dense(cont, x, out):
     for i in range(out.shape[0]):
         out[i] = cont[0, i] + x * (cont[1, i] + x * (cont[2, i] + x * cont[3, i]))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def step_factor(h, h_old, err, err_old, n_iter, accepted):
     """Gustafsson's predictive controller with the Newton-iteration safety factor."""
     safety = 0.9 * (2 * NEWTON_MAXITER + 1) / (2 * NEWTON_MAXITER + n_iter)

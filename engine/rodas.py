@@ -15,13 +15,13 @@ from engine.tableaux import RO_A, RO_C, RO_CC, RO_D, RO_DENSE, RO_GAMMA
 ORDER = 4
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def factor(J, h, LU, piv):
     shifted(J, 1.0 / (RO_GAMMA * h), LU)
     return lu_factor(LU, piv)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def attempt(kernel, p, regs, t, y, f0, fdt, h, LU, piv, K, ynew, ytmp, err_vec,
             atol, rtol):
     """One step with the factors of (1/(gamma h) I - J) already in LU.
@@ -58,7 +58,7 @@ def attempt(kernel, p, regs, t, y, f0, fdt, h, LU, piv, K, ynew, ytmp, err_vec,
     return err_norm(err_vec, y, ynew, atol, rtol), nfev
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def prepare_dense(y, ynew, K, cont):
     n = y.shape[0]
     for i in range(n):
@@ -73,14 +73,14 @@ def prepare_dense(y, ynew, K, cont):
         cont[3, i] = b
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def dense(cont, s, out):
     s1 = 1.0 - s
     for i in range(out.shape[0]):
         out[i] = cont[0, i] * s1 + s * (cont[1, i] + s1 * (cont[2, i] + s * cont[3, i]))
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def step_factor(h, h_old, err, err_old, accepted, first):
     """Predictive controller of the published RODAS code (safety 0.9,
     factor in [0.2, 6]). Returns h_new / h."""

@@ -23,7 +23,7 @@ from engine.tableaux import RADAU5
 EPS = 2.220446049250313e-16
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def nonneg_check(ynew, y, atol, rtol, mask):
     """0: all >= 0; 1: small negatives (clip); 2: significantly negative."""
     worst = 0
@@ -35,7 +35,7 @@ def nonneg_check(ynew, y, atol, rtol, mask):
     return worst
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def reject(fs, iw, h, fac, kind):
     iw[I_REJECTED] += 1
     iw[I_LAST_REJECTED] = 1
@@ -45,7 +45,7 @@ def reject(fs, iw, h, fac, kind):
     fs[F_H] = h * fac
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol):
     vm.jac_dense(kernel, t, y, p, regs, jv, J)
     iw[I_NJEV] += 1
@@ -56,7 +56,7 @@ def new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol):
     fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
     K = V[V_K:V_K + 7]
     ynew = V[V_YNEW]
@@ -85,7 +85,7 @@ def try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
     return True
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
                 pivc, cbuf, pol, h):
     t = fs[F_T]
@@ -155,7 +155,7 @@ def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
     return True
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h):
     t = fs[F_T]
     rtol = fs[F_RTOL]

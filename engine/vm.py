@@ -78,7 +78,7 @@ class Kernel(NamedTuple):
 
 
 # error_model="numpy": x/0 gives inf/nan like numpy instead of raising ZeroDivisionError.
-@njit(cache=True, nogil=True, error_model="numpy")
+@njit(cache=True, nogil=True, _nrt=False, error_model="numpy")
 def run(code, consts, t, y, p, regs, out):
     """Execute one program: read ``t``, ``y``, ``p``; write ``out``."""
     for k in range(code.shape[0]):
@@ -171,7 +171,7 @@ def run(code, consts, t, y, p, regs, out):
             regs[d] = regs[a]
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, nogil=True, _nrt=False, inline="always")
 def mass_action(ma, consts, y, p, regs, out):
     """Add the mass-action terms S r to ``out`` (rate constants already in place).
 
@@ -207,7 +207,7 @@ def mass_action(ma, consts, y, p, regs, out):
             out[ma[q]] += consts[v0 + q - s0] * r
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True, nogil=True, _nrt=False, inline="always")
 def _log(x):
     if x > 0.0:
         return math.log(x)
@@ -216,7 +216,7 @@ def _log(x):
     return math.nan
 
 
-@njit(cache=True, inline="always", error_model="numpy")
+@njit(cache=True, nogil=True, _nrt=False, inline="always", error_model="numpy")
 def _powi(x, n):
     if n < 0:
         x = 1.0 / x
@@ -230,7 +230,7 @@ def _powi(x, n):
     return r
 
 
-@njit(cache=True, inline="always", error_model="numpy")
+@njit(cache=True, nogil=True, _nrt=False, inline="always", error_model="numpy")
 def _pow(x, e):
     if x < 0.0 and e != math.floor(e):
         return math.nan
@@ -239,13 +239,13 @@ def _pow(x, e):
     return x ** e
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def rhs(kernel, t, y, p, regs, out):
     """dy/dt into ``out`` (length n): the program's terms, then the mass-action terms."""
     rhs_parts(kernel.rhs_code, kernel.consts, kernel.ma, t, y, p, regs, out)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def rhs_parts(rhs_code, consts, ma, t, y, p, regs, out):
     """:func:`rhs` from the three arrays it reads. Hot loops that take these out of the
     kernel once can call this instead: passing the whole Kernel tuple into a compiled
@@ -257,13 +257,13 @@ def rhs_parts(rhs_code, consts, ma, t, y, p, regs, out):
         mass_action(ma, consts, y, p, regs, out)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def jac_values(kernel, t, y, p, regs, vals):
     """Nonzero Jacobian values into ``vals`` in the kernel's COO order."""
     run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def jac_dense(kernel, t, y, p, regs, vals, J):
     """Dense Jacobian into ``J`` (n x n), via the sparse values."""
     run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
@@ -272,13 +272,13 @@ def jac_dense(kernel, t, y, p, regs, vals, J):
         J[kernel.jac_rows[k], kernel.jac_cols[k]] = vals[k]
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def aux(kernel, t, y, p, regs, out):
     """Intermediate quantities into ``out`` (length n_aux)."""
     run(kernel.aux_code, kernel.consts, t, y, p, regs, out)
 
 
-@njit(cache=True, nogil=True)
+@njit(cache=True, nogil=True, _nrt=False)
 def events(kernel, t, y, p, regs, out):
     """Event function values into ``out`` (length n_events)."""
     run(kernel.event_code, kernel.consts, t, y, p, regs, out)
