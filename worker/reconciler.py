@@ -1,31 +1,33 @@
-"""Reconciler: requeues running jobs whose lease expired (their worker died), and
-republishes queued jobs whose message is gone (prefetched by a killed worker).
+"""Housekeeping in every worker's main process: one thread, a few idempotent ticks.
 
-Runs as a thread in each worker's main process; the requeue step is atomic in
-Redis, so when several workers notice the same job only one republishes it.
-Also writes this worker's heartbeat for the health endpoint.
+- ``beat``: this worker's heartbeat for the health endpoint.
+- ``reconcile_jobs``: running jobs whose lease expired (their worker died) go back to
+  queued and are published again; queued jobs whose message is gone (prefetched by a
+  killed worker) are published again.
+- batches add their own tick (``worker.run_batch.reconcile_batches``).
+
+Every step is atomic in Redis, so when several workers notice the same job only one
+republishes it, and claims are fenced, so a duplicate message is harmless.
 """
 from __future__ import annotations
 
 import logging
-import os
 import threading
 import time
-from typing import Callable
+from typing import Callable, Sequence
 
 from jobs.store import JobStore
 
 log = logging.getLogger(__name__)
 
 
-class Reconciler:
-    def __init__(self, store: JobStore, publish: Callable[[str], None], name: str, info: dict,
-                 period: float = 2.0, stranded_seconds: float = 60.0):
-        self.store, self.publish, self.name, self.period = store, publish, name, period
-        self.stranded_seconds = stranded_seconds
-        self.info = {"name": name, "pid": os.getpid(), "started": time.time(), **info}
+class Periodic:
+    """Runs ``ticks`` every ``period`` seconds on a daemon thread; a failing tick is logged."""
+
+    def __init__(self, ticks: Sequence[Callable[[], None]], period: float = 2.0, name: str = "reconciler"):
+        self.ticks, self.period = list(ticks), period
         self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, name="reconciler", daemon=True)
+        self._thread = threading.Thread(target=self._run, name=name, daemon=True)
 
     def start(self) -> None:
         self._thread.start()
@@ -35,20 +37,23 @@ class Reconciler:
 
     def _run(self) -> None:
         while not self._stop.is_set():
-            try:
-                self.tick()
-            except Exception as e:
-                log.warning("reconciler tick failed: %s", e)
+            for tick in self.ticks:
+                try:
+                    tick()
+                except Exception as e:  # Redis blip or the like: try again next period
+                    log.warning("%s failed: %s", getattr(tick, "__name__", tick), e)
             self._stop.wait(self.period)
 
-    def tick(self) -> None:
-        self.store.worker_beat(self.name, {**self.info, "seen": time.time()})
-        for job_id in self.store.expired_running():
-            action = self.store.requeue(job_id)
-            if action == 1:
-                log.warning("job %s lost its worker; requeued", job_id)
-                self.publish(job_id)
-        # Claims are fenced, so a duplicate message for a job is harmless.
-        for job_id in self.store.stranded_queued(older_than=self.stranded_seconds):
-            log.warning("job %s queued but its message is gone; republished", job_id)
-            self.publish(job_id)
+
+def beat(store: JobStore, info: dict) -> None:
+    store.worker_beat(info["name"], {**info, "seen": time.time()})
+
+
+def reconcile_jobs(store: JobStore, publish: Callable[[str], None], stranded_seconds: float = 60.0) -> None:
+    for job_id in store.expired_running():
+        if store.requeue(job_id) == 1:
+            log.warning("job %s lost its worker; requeued", job_id)
+            publish(job_id)
+    for job_id in store.stranded_queued(older_than=stranded_seconds):
+        log.warning("job %s queued but its message is gone; republished", job_id)
+        publish(job_id)

@@ -189,35 +189,13 @@ def _publish_next(store: BatchStore, publish, batch_id: str) -> None:
         publish(batch_id, nxt)
 
 
-class BatchReconciler:
-    """Republishes chunks whose worker died and tops up each batch's window of chunks.
+def reconcile_batches(store: BatchStore, publish: Callable[[str, int], None]) -> None:
+    """Republish chunks whose worker (or message) was lost; top up each batch's window of chunks.
 
-    Runs as a thread in each worker's main process; the requeue step is atomic in
-    Redis, so when several workers notice the same chunk only one republishes it.
+    A tick of the worker's housekeeping thread (worker/reconciler.py).
     """
-
-    def __init__(self, store: BatchStore, publish: Callable[[str, int], None], period: float = 2.0):
-        self.store, self.publish, self.period = store, publish, period
-        self._stop = threading.Event()
-        self._thread = threading.Thread(target=self._run, name="batch-reconciler", daemon=True)
-
-    def start(self) -> None:
-        self._thread.start()
-
-    def stop(self) -> None:
-        self._stop.set()
-
-    def _run(self) -> None:
-        while not self._stop.wait(self.period):
-            try:
-                self.tick()
-            except Exception as e:
-                log.warning("batch reconciler tick failed: %s", e)
-
-    def tick(self) -> None:
-        for batch_id in self.store.active_ids():
-            for chunk in self.store.requeue_expired(batch_id):
-                log.warning("batch %s chunk %d lost its worker or its message; published again",
-                            batch_id, chunk)
-                self.publish(batch_id, chunk)
-            _publish_next(self.store, self.publish, batch_id)
+    for batch_id in store.active_ids():
+        for chunk in store.requeue_expired(batch_id):
+            log.warning("batch %s chunk %d lost its worker or its message; published again", batch_id, chunk)
+            publish(batch_id, chunk)
+        _publish_next(store, publish, batch_id)

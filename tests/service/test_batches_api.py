@@ -10,7 +10,7 @@ import pytest
 
 from jobs import accounts
 from jobs.batch_store import BatchStore
-from worker.run_batch import BatchReconciler, run_chunk
+from worker.run_batch import reconcile_batches, run_chunk
 
 # y' = -k y + a y^2: pure decay for a = 0; for a > k (y0 = 1) the solution blows up at
 # t = ln(a / (a - k)) / k, inside the span for a = 10, k = 1 (t ~ 0.105): that member fails.
@@ -170,7 +170,7 @@ def test_a_lost_worker_chunk_is_requeued_fenced_and_counted_once(bclient, bstore
     assert status == "claimed"
     time.sleep(1.2)  # its lease (1 s in these settings) expires
     republished = []
-    BatchReconciler(bstore, lambda b, c: republished.append(c)).tick()
+    reconcile_batches(bstore, lambda b, c: republished.append(c))
     # chunk 0 lost its worker; chunk 1, published but unclaimed for longer than
     # batch_stale_seconds, may sit in a dead worker's prefetch: both are published again
     assert sorted(republished) == [0, 1]
