@@ -40,8 +40,9 @@ def test_a_wrong_or_revoked_key_is_401(secured, store):
 def test_keys_are_stored_only_as_digests(store):
     _, key = accounts.create_key(store.r, store.keys, "dee")
     dump = b"".join(store.r.dump(k) or b"" for k in store.r.keys(store.keys.prefix + ":*"))
-    assert key.encode() not in dump and key.split("_")[2].encode() not in dump
-    assert len(key.split("_")[2]) * 6 >= 128  # at least 128 random bits (base64url chars)
+    secret = key.split("_", 2)[2]
+    assert key.encode() not in dump and secret.encode() not in dump
+    assert len(secret) * 6 >= 128  # at least 128 random bits (base64url chars)
 
 
 def test_a_key_in_the_query_string_is_refused(secured):
@@ -147,3 +148,30 @@ def test_one_idempotency_key_cannot_create_a_job_and_then_a_batch(client):
     first = client.post("/v1/batches", json=batch, headers={"Idempotency-Key": "k6"})
     again = client.post("/v1/batches", json=batch, headers={"Idempotency-Key": "k6"})
     assert first.status_code == again.status_code == 202 and first.get_json()["id"] == again.get_json()["id"]
+
+
+def test_every_resource_endpoint_is_404_for_another_owner(secured):
+    """Walks the URL map: no endpoint that names a job or batch serves it to a second key."""
+    app, who = secured
+    c = app.test_client()
+    job = c.post("/v1/jobs", json=DECAY, headers=who["ana"]).get_json()["id"]
+    batch_body = {"base": DECAY, "members": [{"parameters": {"k": 1.0}}],
+                  "summaries": [{"kind": "final", "of": "a"}]}
+    batch = c.post("/v1/batches", json=batch_body, headers=who["ana"]).get_json()["id"]
+    ids = {"job_id": job, "batch_id": batch}
+    probed = 0
+    for rule in app.url_map.iter_rules():
+        names = set(rule.arguments) & set(ids)
+        if not rule.rule.startswith("/v1/") or not names:
+            continue
+        path = rule.rule
+        for name in rule.arguments:
+            path = path.replace(f"<{name}>", ids[name])
+        for method in sorted(rule.methods - {"HEAD", "OPTIONS"}):
+            r = c.open(path, method=method, headers=who["ben"])
+            text = r.get_data(as_text=True)
+            assert r.status_code == 404, (method, path, r.status_code)
+            assert "first-order decay" not in text and '"state"' not in text, (method, path)
+            probed += 1
+    assert probed >= 8
+    assert c.get(f"/v1/jobs/{job}", headers=who["ana"]).status_code == 200
