@@ -13,7 +13,7 @@ from numba import njit
 from engine import dopri5, radau5, rodas, switching, vm
 from engine.errors_norm import initial_step
 from engine.linalg import copy
-from engine.events import scan
+from engine.events import dense_eval, scan
 from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ERR_OLD,
                           F_EXPL_NEEDED, F_H, F_H_JCHECK, F_H_LAST, F_H_OLD, F_HEXP, F_HMAX,
                           F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_OLD, F_TEND, I_ACCEPTED,
@@ -27,7 +27,7 @@ from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ER
 from engine.steps import new_jacobian, nonneg_check, try_dopri5, try_radau5, try_rodas
 from engine.switching import (P_BOUNDARY, P_POWER_ITERS, P_UNSTABLE,
                               REASON_EXPLICIT_CHEAPER, REASON_STIFF, REASON_UNSTABLE)
-from engine.tableaux import DOPRI5, RADAU5
+from engine.tableaux import DOPRI5, RADAU5, RODAS
 
 EPS = 2.220446049250313e-16
 JAC_CHECK_EVERY = 20  # auto mode: accepted explicit steps between Jacobian checks
@@ -57,7 +57,9 @@ def start(kernel, p, regs, y, atol, fs, iw, V, gv, order):
 
 @njit(cache=True, nogil=True, _nrt=False)
 def _history(hist, iw, t, h, method, h_exp):
-    """Keep at most hist.shape[0] rows, thinning by two when full."""
+    """Keep at most hist.shape[0] rows, thinning by two when full (none: no history)."""
+    if hist.shape[0] == 0:
+        return
     if iw[I_ACCEPTED] % iw[I_HIST_STRIDE] != 0:
         return
     k = iw[I_HIST_N]
@@ -86,15 +88,23 @@ def _scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir, ev_term, ev
                 ev_i, ev_y, counts, ytmp)
 
 
+@njit(cache=True, nogil=True, _nrt=True)
+def _dense_any(method, cont, t_old, h, t, out):
+    """engine.events.dense_eval (all methods, BDF of the sparse path included)."""
+    dense_eval(method, cont, t_old, h, t, out)
+
+
 @njit(cache=True, nogil=True, _nrt=False)
-def _dense(method, cont, x, out):
-    """State at fraction x of the step from the method's interpolant."""
+def _dense(method, cont, t_old, h, t, out):
+    """State at time t from the interpolant of the step (t_old, t_old + h)."""
     if method == DOPRI5:
-        dopri5.dense(cont, x, out)
+        dopri5.dense(cont, (t - t_old) / h, out)
     elif method == RADAU5:
-        radau5.dense(cont, x, out)
+        radau5.dense(cont, (t - t_old) / h, out)
+    elif method == RODAS:
+        rodas.dense(cont, (t - t_old) / h, out)
     else:
-        rodas.dense(cont, x, out)
+        _dense_any(method, cont, t_old, h, t, out)
 
 
 @njit(cache=True, nogil=True, _nrt=False)
@@ -122,7 +132,7 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
         if t_out[k] == t_new:
             copy(ynew, y_out[k])
         else:
-            _dense(method, cont, (t_out[k] - t_old) / h, y_out[k])
+            _dense(method, cont, t_old, h, t_out[k], y_out[k])
             if iw[I_NONNEG]:  # the interpolant may dip below zero between points
                 for i in range(y.shape[0]):
                     if y_out[k, i] < 0.0 and V[V_NNMASK, i] != 0.0:

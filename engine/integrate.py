@@ -9,6 +9,7 @@ documented in docs/engine.md.
 """
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass, field
 from typing import Callable, Optional
@@ -86,42 +87,37 @@ class _Run:
 
     def __init__(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
         n, ne = kernel.n, kernel.n_events
-        self.y = np.array(y0, dtype=np.float64)
-        self.y0 = self.y.copy()
-        self.p = np.ascontiguousarray(p, dtype=np.float64)
-        self.regs = np.zeros(max(kernel.n_regs, 1))
-        self.atol = np.broadcast_to(np.asarray(o.atol, dtype=np.float64), (n,)).copy()
-        self.pol = o.policy.as_array()
-        self.V = np.zeros((S.N_ROWS, n))
-        if o.nonnegative is not False and o.nonnegative is not None:
-            self.V[S.V_NNMASK] = np.broadcast_to(np.asarray(o.nonnegative, dtype=float), (n,))
-        self.cont = np.zeros((6, n))
         implicit = o.method != "dopri5"
         self.sparse = o.method == "bdf" or (implicit and sparse.wants_sparse(kernel))
         self.pattern = sparse.Pattern(kernel) if self.sparse else None
         self.sparse_lu = None
         m = n if implicit and not self.sparse else 0
-        self.J = np.zeros((m, m))
-        self.jv = np.zeros(len(kernel.jac_rows))
-        self.LU = np.zeros((m, m))
-        self.piv = np.zeros(m, dtype=np.int64)
-        self.LUc = np.zeros((m, m), dtype=np.complex128)
-        self.pivc = np.zeros(m, dtype=np.int64)
-        self.cbuf = np.zeros(m, dtype=np.complex128)
+        cap = o.max_events if ne else 0
+        hist_rows = HIST_ROWS if o.diagnostics == "full" else 0  # "counts": no history
+        # One zeroed buffer per dtype, cut into C-contiguous views: a solve in a sweep
+        # spends more time allocating than integrating otherwise.
+        (self.y, self.y0, self.regs, self.atol, self.V, self.cont, self.J, self.jv,
+         self.LU, self.y_out, self.gv, self.ev_t, self.ev_y, self.swlog, self.hist,
+         self.fs) = _carve(np.float64, (n,), (n,), (max(kernel.n_regs, 1),), (n,),
+                           (S.N_ROWS, n), (6, n), (m, m), (len(kernel.jac_rows),), (m, m),
+                           (len(t_out), n), (4, ne), (cap,), (cap, n), (SWITCH_ROWS, 7),
+                           (hist_rows, 4), (S.N_FS,))
+        self.piv, self.pivc, self.ev_i, self.iw = _carve(np.int64, (m,), (m,), (cap,),
+                                                         (S.N_IW,))
+        self.LUc, self.cbuf = _carve(np.complex128, (m, m), (m,))
+        self.y[:] = y0
+        self.y0[:] = y0
+        self.atol[:] = o.atol
+        self.p = np.ascontiguousarray(p, dtype=np.float64)
+        self.pol = o.policy.as_array()
+        if o.nonnegative is not False and o.nonnegative is not None:
+            self.V[S.V_NNMASK] = o.nonnegative
         self.t_out = t_out
-        self.y_out = np.zeros((len(t_out), n))
-        self.gv = np.zeros((4, ne))
         self.ev_dir = (np.zeros(ne, dtype=np.int64) if o.event_directions is None
                        else np.asarray(o.event_directions, dtype=np.int64))
         self.ev_term = (np.zeros(ne, dtype=np.bool_) if o.event_terminal is None
                         else np.asarray(o.event_terminal, dtype=np.bool_))
-        cap = o.max_events if ne else 0
-        self.ev_t = np.zeros(cap)
-        self.ev_i = np.zeros(cap, dtype=np.int64)
-        self.ev_y = np.zeros((cap, n))
-        self.swlog = np.zeros((SWITCH_ROWS, 7))
-        self.hist = np.zeros((HIST_ROWS, 4))
-        fs = self.fs = np.zeros(S.N_FS)
+        fs = self.fs
         fs[S.F_T] = fs[S.F_T0] = t0
         fs[S.F_TEND] = t1
         fs[S.F_H] = o.first_step or 0.0
@@ -129,7 +125,7 @@ class _Run:
         fs[S.F_RTOL] = o.rtol
         fs[S.F_ERR_OLD] = 1e-4
         fs[S.F_NEWTON_TOL] = max(10 * 2.22e-16 / o.rtol, min(0.03, o.rtol ** 0.5))
-        iw = self.iw = np.zeros(S.N_IW, dtype=np.int64)
+        iw = self.iw
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
@@ -156,6 +152,17 @@ class _Run:
                        self.LUc, self.pivc, self.cbuf, self.t_out, self.y_out, self.gv,
                        self.ev_dir, self.ev_term, self.ev_t, self.ev_i, self.ev_y,
                        self.swlog, self.hist, budget)
+
+
+def _carve(dtype, *shapes):
+    """Zeroed C-contiguous arrays of the given shapes, all views of one buffer."""
+    sizes = [math.prod(sh) for sh in shapes]
+    buf = np.zeros(sum(sizes), dtype=dtype)
+    out, k = [], 0
+    for sh, size in zip(shapes, sizes):
+        out.append(buf[k:k + size].reshape(sh))
+        k += size
+    return out
 
 
 def _check(kernel, y0, t0, t1, t_out, o):
