@@ -83,9 +83,13 @@ Monitor = Callable[[float], bool]
 
 
 class _Run:
-    """All arrays of one run (plain numpy; the compiled loop mutates them)."""
+    """All arrays of one run (plain numpy; the compiled loop mutates them).
 
-    def __init__(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
+    Dense-path runs are kept for reuse (see :func:`_take_run`): a sweep calls
+    integrate thousands of times with the same shapes, and building some twenty
+    arrays costs more than a short solve."""
+
+    def __init__(self, kernel, t_out, o: SolverOptions):
         n, ne = kernel.n, kernel.n_events
         implicit = o.method != "dopri5"
         self.sparse = o.method == "bdf" or (implicit and sparse.wants_sparse(kernel))
@@ -94,8 +98,7 @@ class _Run:
         m = n if implicit and not self.sparse else 0
         cap = o.max_events if ne else 0
         hist_rows = HIST_ROWS if o.diagnostics == "full" else 0  # "counts": no history
-        # One zeroed buffer per dtype, cut into C-contiguous views: a solve in a sweep
-        # spends more time allocating than integrating otherwise.
+        # One zeroed buffer per dtype, cut into C-contiguous views.
         (self.y, self.y0, self.regs, self.atol, self.V, self.cont, self.J, self.jv,
          self.LU, self.y_out, self.gv, self.ev_t, self.ev_y, self.swlog, self.hist,
          self.fs) = _carve(np.float64, (n,), (n,), (max(kernel.n_regs, 1),), (n,),
@@ -105,6 +108,20 @@ class _Run:
         self.piv, self.pivc, self.ev_i, self.iw = _carve(np.int64, (m,), (m,), (cap,),
                                                          (S.N_IW,))
         self.LUc, self.cbuf = _carve(np.complex128, (m, m), (m,))
+        self.buffers = [a.base for a in (self.y, self.piv, self.LUc)]
+        self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
+        self.fresh = True
+        self.code_seen = None
+        self.has_time = 0
+
+    def reset(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
+        if not self.fresh:
+            for buf in self.buffers:
+                buf.fill(0)
+            if self.D is not None:
+                self.D.fill(0.0)
+        self.fresh = False
+        ne = kernel.n_events
         self.y[:] = y0
         self.y0[:] = y0
         self.atol[:] = o.atol
@@ -129,7 +146,6 @@ class _Run:
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
-        self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
         if self.sparse:  # large sparse Jacobian: SuperLU (engine.sparse, engine.bdf)
             iw[S.I_PINNED] = iw[S.I_METHOD] = RODAS if o.method == "rodas" else BDF
         iw[S.I_MAX_STEPS] = o.max_steps
@@ -138,7 +154,11 @@ class _Run:
         iw[S.I_FIRST] = 1
         iw[S.I_JAC_CURRENT] = -1
         iw[S.I_NONNEG] = int(self.V[S.V_NNMASK].any())
-        iw[S.I_HAS_TIME] = int(bool((kernel.rhs_code[:, 0] == vm.TIME).any()))
+        if self.code_seen is not kernel.rhs_code:  # same program as the last run: known
+            self.code_seen = kernel.rhs_code
+            self.has_time = int(bool((kernel.rhs_code[:, 0] == vm.TIME).any()))
+        iw[S.I_HAS_TIME] = self.has_time
+        return self
 
     def advance(self, kernel, budget):
         if self.sparse:
@@ -152,6 +172,43 @@ class _Run:
                        self.LUc, self.pivc, self.cbuf, self.t_out, self.y_out, self.gv,
                        self.ev_dir, self.ev_term, self.ev_t, self.ev_i, self.ev_y,
                        self.swlog, self.hist, budget)
+
+
+_POOL: dict[tuple, list[_Run]] = {}
+POOL_KEYS = 32          # distinct run shapes kept
+POOL_PER_KEY = 4        # runs kept per shape (threads may integrate concurrently)
+POOL_MAX_VALUES = 1 << 16  # larger runs (long output grids, big models) are not kept
+
+
+def _pool_key(kernel, t_out, o):
+    return (kernel.n, kernel.n_regs, len(kernel.jac_rows), kernel.n_events, o.method,
+            o.max_events, o.diagnostics == "full", len(t_out))
+
+
+def _take_run(kernel, p, y0, t0, t1, t_out, o) -> _Run:
+    free = _POOL.get(_pool_key(kernel, t_out, o))
+    try:
+        run = free.pop() if free else None
+    except IndexError:  # another thread took the last one
+        run = None
+    if run is None:
+        run = _Run(kernel, t_out, o)
+    return run.reset(kernel, p, y0, t0, t1, t_out, o)
+
+
+def _give_back(kernel, run, o):
+    """Keep a finished dense-path run for the next call with the same shapes."""
+    if run.sparse or run.buffers[0].size > POOL_MAX_VALUES:
+        return
+    key = _pool_key(kernel, run.t_out, o)
+    free = _POOL.get(key)
+    if free is None:
+        if len(_POOL) >= POOL_KEYS:
+            _POOL.clear()
+        free = _POOL.setdefault(key, [])
+    if len(free) < POOL_PER_KEY:
+        run.p = run.t_out = None  # hold no caller arrays
+        free.append(run)
 
 
 def _carve(dtype, *shapes):
@@ -196,7 +253,7 @@ def integrate(
     t_out = np.asarray(t_out, dtype=np.float64)
     _check(kernel, y0, t0, t1, t_out, o)
     t_out = t_out[(t_out >= t0) & (t_out <= t1)]
-    run = _Run(kernel, p, y0, t0, t1, t_out, o)
+    run = _take_run(kernel, p, y0, t0, t1, t_out, o)
     secs = np.zeros(len(METHOD_NAMES))
     stop = None
     if o.rtol < MIN_RTOL:
@@ -207,7 +264,9 @@ def integrate(
         stop = NON_FINITE
     else:
         stop = _loop(kernel, run, monitor, o, secs, started)
-    return _solution(kernel, run, stop, o, conservation, secs, started)
+    sol = _solution(kernel, run, stop, o, conservation, secs, started)
+    _give_back(kernel, run, o)
+    return sol
 
 
 def _loop(kernel, run, monitor, o, secs, started):
@@ -271,7 +330,7 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
     outcome = stop or _STATUS[int(run.iw[S.I_STATUS])]
     k = int(run.iw[S.I_IOUT])
     t_res = run.t_out[:k].copy()
-    y_res = run.y_out[:k]
+    y_res = run.y_out[:k].copy()
     aux = np.empty((k, kernel.n_aux))
     if kernel.n_aux:
         driver_aux(kernel, t_res, y_res, run.p, run.regs, aux)
