@@ -229,10 +229,16 @@ def _check(kernel, y0, t0, t1, t_out, o):
         raise ValueError("t_span must be two finite times with t_end > t_start")
     if len(y0) != kernel.n:
         raise ValueError(f"y0 has {len(y0)} values, the model has {kernel.n} states")
-    if len(t_out) > 1 and not (t_out[1:] >= t_out[:-1]).all() or \
-            not np.isfinite(t_out).all():
+    if t_out.ndim == 1 and len(t_out) <= 16:  # plain floats beat array reductions here
+        ts = t_out.tolist()
+        bad = not all(map(math.isfinite, ts)) or any(b < a for a, b in zip(ts, ts[1:]))
+    else:
+        bad = len(t_out) > 1 and not (t_out[1:] >= t_out[:-1]).all() or \
+            not np.isfinite(t_out).all()
+    if bad:
         raise ValueError("t_out must be finite and non-decreasing")
-    if not (o.rtol > 0 and np.all(np.asarray(o.atol) >= 0)):
+    atol_ok = o.atol >= 0 if isinstance(o.atol, float) else np.all(np.asarray(o.atol) >= 0)
+    if not (o.rtol > 0 and atol_ok):
         raise ValueError("rtol must be positive and atol non-negative")
 
 
@@ -252,9 +258,10 @@ def integrate(
     t0, t1 = float(t_span[0]), float(t_span[1])
     t_out = np.asarray(t_out, dtype=np.float64)
     _check(kernel, y0, t0, t1, t_out, o)
-    t_out = t_out[(t_out >= t0) & (t_out <= t1)]
+    if len(t_out) and not (t_out[0] >= t0 and t_out[-1] <= t1):  # sorted: ends suffice
+        t_out = t_out[(t_out >= t0) & (t_out <= t1)]
     run = _take_run(kernel, p, y0, t0, t1, t_out, o)
-    secs = np.zeros(len(METHOD_NAMES))
+    secs = [0.0] * len(METHOD_NAMES)
     stop = None
     if o.rtol < MIN_RTOL:
         stop = TOLERANCE_UNREACHABLE
