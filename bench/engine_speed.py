@@ -1,6 +1,6 @@
 """Speed of the engine's integrators (a benchmark, not a test).
 
-Run: PYTHONPATH=. python bench/engine_speed.py [--quick]
+Run: PYTHONPATH=. python bench/engine_speed.py [--quick] [--no-sparse]
 Prints per-solve times (median) at rtol 1e-6, atol 1e-10, one core, for the
 small stiff problems against SciPy odeint with numba-compiled rhs and Jacobian,
 Robertson solves per second with the kernel prepared once, auto vs pinned
@@ -120,6 +120,22 @@ def throughput(seconds=2.0):
               f"{n / (time.perf_counter() - t0):.0f} solves/s")
 
 
+def call_overhead(n=3000):
+    """Time of an integrate() call that takes one step: the Python cost per call."""
+    m = K.model(K.ROBERTSON)
+    t_out = np.array([1e-9])
+    for diag in ("counts", "full"):
+        o = SolverOptions(method="rodas", rtol=RTOL, atol=ATOL, diagnostics=diag)
+        integrate(m.kernel, m.p, m.y0, (0.0, 1e-9), t_out, o)
+        best = np.inf
+        for _ in range(5):
+            t0 = time.perf_counter()
+            for _ in range(n // 5):
+                integrate(m.kernel, m.p, m.y0, (0.0, 1e-9), t_out, o)
+            best = min(best, (time.perf_counter() - t0) / (n // 5))
+        print(f"integrate() call taking one step, diagnostics={diag}: {1e6 * best:.1f} us")
+
+
 def nonstiff(repeat):
     print("non-stiff: auto vs pinned dopri5 (median ms)")
     for name, spec, t_end in (("arenstorf", K.ARENSTORF, K.ARENSTORF_PERIOD),
@@ -154,5 +170,7 @@ if __name__ == "__main__":
     quick = "--quick" in sys.argv
     stiff_table(5 if quick else 20)
     throughput(1.0 if quick else 3.0)
+    call_overhead()
     nonstiff(5 if quick else 20)
-    brusselator()
+    if "--no-sparse" not in sys.argv:
+        brusselator()
