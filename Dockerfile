@@ -11,7 +11,7 @@ COPY worker worker
 COPY jobs jobs
 COPY cli cli
 COPY examples examples
-RUN pip install --no-cache-dir .
+RUN pip install --no-cache-dir -e .  # editable: examples/ and static files stay under /app
 ENV STIFFLANE_NUMBA_CACHE=/var/cache/stifflane-numba PYTHONUNBUFFERED=1
 RUN useradd --create-home stifflane && mkdir -p $STIFFLANE_NUMBA_CACHE && chown stifflane $STIFFLANE_NUMBA_CACHE
 USER stifflane
