@@ -134,9 +134,76 @@ def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool,
         else:
             row = (opc, d, *srcs, *([0] * (3 - len(srcs))))
         rows.append(row)
+    rows = fold_loads(rows)
     code = np.array(rows, dtype=np.int32).reshape(len(rows), vm.N_FIELDS)
     if len(pinned):
         moves = code[:, 0] == vm.MOVE
         code[moves, 1] += n_regs
         return code, n_regs + len(pinned)
     return code, max(n_regs, 1)
+
+
+_NO_READS = {vm.CONST, vm.STATE, vm.PARAM, vm.TIME, vm.OUTC}
+_ONE_READ = {vm.OUT, vm.MOVE, vm.MULC, vm.MULP, vm.POWI, vm.NEG, vm.SQUARE, vm.EXP, vm.LOG, vm.LOG10,
+             vm.SQRT, vm.SIN, vm.COS, vm.TAN, vm.SINH, vm.COSH, vm.TANH, vm.ABS, vm.SIGN,
+             vm.STEP, vm.NOT}
+_THREE_READS = {vm.MULADD, vm.SELECT}
+# (load op, reader op) -> folded op
+_FOLDS = {(vm.CONST, vm.MUL): vm.MULC, (vm.PARAM, vm.MUL): vm.MULP,
+          (vm.CONST, vm.MULADD): vm.MULADDC, (vm.PARAM, vm.MULADD): vm.MULADDP,
+          (vm.CONST, vm.OUT): vm.OUTC}
+
+
+def _read_fields(op: int) -> tuple[int, ...]:
+    """Fields of an instruction that name registers it reads."""
+    if op in _NO_READS:
+        return ()
+    if op in _ONE_READ:
+        return (2,)
+    if op in (vm.MULADDC, vm.MULADDP):
+        return (2, 4)
+    if op in _THREE_READS:
+        return (2, 3, 4)
+    return (2, 3)
+
+
+def _single_reader(rows: list[tuple], i: int) -> tuple[int, int]:
+    """(row, field) of the only read of the register row i writes, else (-1, -1)."""
+    r = rows[i][1]
+    found = (-1, -1)
+    for j in range(i + 1, len(rows)):
+        row = rows[j]
+        for f in _read_fields(row[0]):
+            if row[f] == r:
+                if found[0] >= 0:
+                    return -1, -1
+                found = (j, f)
+        if row[0] not in (vm.OUT, vm.MOVE, vm.OUTC) and row[1] == r:
+            break  # redefined: later reads see another value
+    return found
+
+
+def fold_loads(rows: list[tuple]) -> list[tuple]:
+    """Fold each constant or parameter load read exactly once, by a product, a fused
+    multiply-add (as a factor) or an output, into its reader (the MULC/MULP/MULADDC/
+    MULADDP/OUTC forms). Values are unchanged: the same operations in the same order
+    (a product's operands swap, which is exact in floating point)."""
+    rows = list(rows)
+    dropped = set()
+    for i, row in enumerate(rows):
+        if row[0] not in (vm.CONST, vm.PARAM):
+            continue
+        j, f = _single_reader(rows, i)
+        if j < 0:
+            continue
+        reader = rows[j]
+        new = _FOLDS.get((row[0], reader[0]))
+        if new is None or (reader[0] == vm.MULADD and f == 4):
+            continue
+        if new == vm.OUTC:
+            rows[j] = (new, reader[1], row[2], 0, 0)
+        else:
+            other = reader[3] if f == 2 else reader[2]
+            rows[j] = (new, reader[1], other, row[2], reader[4])
+        dropped.add(i)
+    return [row for k, row in enumerate(rows) if k not in dropped]

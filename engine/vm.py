@@ -39,6 +39,11 @@ AND, OR, NOT, SELECT = 33, 34, 35, 36
 MULADD = 37  # dst = a * b + c (fused form used by mass-action rates)
 SIGN = 38
 MOVE = 39    # dst = a (pins a value in a register read after the program)
+# Load-free operand forms (engine.program folds a single-use constant or parameter
+# load into its reader): one dispatch instead of two.
+MULC, MULP = 40, 41          # dst = a * consts[b] / a * p[b]
+MULADDC, MULADDP = 42, 43    # dst = a * consts[b] + c / a * p[b] + c
+OUTC = 44                    # out[dst] = consts[a]
 
 N_FIELDS = 5
 
@@ -101,6 +106,16 @@ def run(code, consts, t, y, p, regs, out):
             out[d] = regs[a]
         elif op == MULADD:
             regs[d] = regs[a] * regs[code[k, 3]] + regs[code[k, 4]]
+        elif op == MULC:
+            regs[d] = regs[a] * consts[code[k, 3]]
+        elif op == MULADDC:
+            regs[d] = regs[a] * consts[code[k, 3]] + regs[code[k, 4]]
+        elif op == MULP:
+            regs[d] = regs[a] * p[code[k, 3]]
+        elif op == MULADDP:
+            regs[d] = regs[a] * p[code[k, 3]] + regs[code[k, 4]]
+        elif op == OUTC:
+            out[d] = consts[a]
         elif op == NEG:
             regs[d] = -regs[a]
         elif op == DIV:

@@ -66,7 +66,7 @@ def test_registers_are_reused_after_last_use():
 def test_single_use_products_are_fused_into_sums():
     _, roots = build(["a*x + c*y"])
     _, code, _, _ = run(roots, 0.0, [1.0, 2.0, 0.0], [3.0, 4.0])
-    assert vm.MULADD in code[:, 0]
+    assert {vm.MULADD, vm.MULADDC, vm.MULADDP} & set(code[:, 0].tolist())
 
 
 @settings(max_examples=150, deadline=None)
@@ -77,3 +77,14 @@ def test_any_output_list_matches_reference(texts, y):
     out, *_ = run(roots, 0.5, y, [1.5, -0.5])
     ref = evaluate(roots, 0.5, y, [1.5, -0.5])
     np.testing.assert_array_equal(out, np.array(ref))
+
+
+def test_single_use_loads_are_folded_into_their_reader():
+    # a constant or parameter read once by a product, a fused multiply-add or an
+    # output costs no separate load instruction; a shared one is still loaded once
+    _, roots = build(["2.5*x + a*y", "a*z", "7.0"])
+    out, code, _, _ = run(roots, 0.0, [1.0, 2.0, 3.0], [0.5, 0.0])
+    assert list(out) == evaluate(roots, 0.0, [1.0, 2.0, 3.0], [0.5, 0.0])
+    ops = code[:, 0].tolist()
+    assert vm.OUTC in ops and ops.count(vm.CONST) == 0
+    assert ops.count(vm.PARAM) == 1  # a is read twice: loaded once, not folded
