@@ -266,8 +266,10 @@ def rhs_parts(rhs_code, consts, ma, t, y, p, regs, out):
     kernel once can call this instead: passing the whole Kernel tuple into a compiled
     function costs a reference-count update per array field on every call."""
     if ma[0] > 0:
-        out[:] = 0.0  # the program then writes only the states with their own ddt terms
-    run(rhs_code, consts, t, y, p, regs, out)
+        for i in range(out.shape[0]):  # the program then writes only the states with
+            out[i] = 0.0               # their own ddt terms
+    if rhs_code.shape[0] > 0:
+        run(rhs_code, consts, t, y, p, regs, out)
     if ma[0] > 0:
         mass_action(ma, consts, y, p, regs, out)
 
