@@ -95,7 +95,7 @@ def _bruss(n: int) -> Problem:
         model=B.model(n), t_end=B.T_END, stiff=True, atol_scale=1.0, floor=1e-6,
         f=f, jac=jac, jit="bruss", p_jit=p.astype(float), sparse=True,
         limits={"max_states": 40000}, reference_rtol=1e-10 if n <= 64 else 1e-8,
-        rtols=(1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8) if n <= 64 else (1e-3, 1e-4, 1e-6))
+        rtols=(1e-3, 1e-4, 1e-5, 1e-6, 1e-7, 1e-8) if n <= 64 else (1e-3, 1e-4))
 
 
 def build(name: str) -> Problem:

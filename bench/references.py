@@ -19,6 +19,9 @@ from bench.matching import digits
 from bench.problems import Problem, prepare_problem
 
 CACHE = Path(__file__).resolve().parent / "results" / "references.json"
+# Large problems' references (tens of thousands of values) stay out of git.
+CACHE_LARGE = CACHE.with_name("references-large.json")
+LARGE = 64
 CAP_SECONDS = 600.0  # a reference that takes longer is reported missing (runs get no digits)
 
 
@@ -61,9 +64,9 @@ def _solve(problem: Problem, y0: np.ndarray):
     return method, sol.y[:, -1], time.perf_counter() - started
 
 
-def _read() -> dict:
+def _read(path: Path) -> dict:
     try:
-        return json.loads(CACHE.read_text())
+        return json.loads(path.read_text())
     except (FileNotFoundError, json.JSONDecodeError):
         return {}
 
@@ -72,17 +75,18 @@ def reference(problem: Problem, log=print) -> dict:
     """{"y": end values, "method", "rtol", "seconds", "published", "published_digits"}."""
     y0 = np.array(prepare_problem(problem).y0)
     method = "DOP853" if problem.jac is None else ("BDF" if problem.sparse else "Radau")
-    cache = _read()
+    path = CACHE_LARGE if problem.n > LARGE else CACHE
+    cache = _read(path)
     key = _key(problem, method)
     if key not in cache:
         log(f"computing the reference for {problem.name} with SciPy {method} "
             f"at rtol {problem.reference_rtol:g} (cached afterwards)")
         method, y, secs = _solve(problem, y0)
-        cache = _read()
+        cache = _read(path)
         cache[key] = {"y": [float(v) for v in y], "method": method,
                       "rtol": problem.reference_rtol, "seconds": secs}
-        CACHE.parent.mkdir(parents=True, exist_ok=True)
-        CACHE.write_text(json.dumps(cache, indent=1))
+        path.parent.mkdir(parents=True, exist_ok=True)
+        path.write_text(json.dumps(cache, indent=1))
     ref = dict(cache[key])
     ref["y"] = np.array(ref["y"])
     if problem.published is not None:

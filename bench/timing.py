@@ -5,7 +5,7 @@ import statistics
 import time
 
 SLOW = 5.0         # seconds: a compiled peer's warm-up this long is repeated only once
-SLOW_PLAIN = 0.5   # seconds: a plain-Python peer this slow keeps its warm-up as the sample
+SLOW_PLAIN = 0.5   # seconds: any other peer this slow keeps its warm-up as the sample
 
 
 def measure(call, budget: float, max_repeats: int, jit: bool) -> dict:
