@@ -153,7 +153,8 @@ class _Run:
         iw[S.I_STEPS_IN_METHOD] = o.policy.min_steps  # no hysteresis for the first method
         iw[S.I_FIRST] = 1
         iw[S.I_JAC_CURRENT] = -1
-        iw[S.I_NONNEG] = int(self.V[S.V_NNMASK].any())
+        iw[S.I_NONNEG] = 0 if o.nonnegative is False or o.nonnegative is None \
+            else int(self.V[S.V_NNMASK].any())
         if self.code_seen is not kernel.rhs_code:  # same program as the last run: known
             self.code_seen = kernel.rhs_code
             self.has_time = int(bool((kernel.rhs_code[:, 0] == vm.TIME).any()))

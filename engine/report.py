@@ -2,6 +2,7 @@
 key names are documented in docs/engine.md). No NaN or infinity: None instead."""
 from __future__ import annotations
 
+import math
 import time
 
 import numpy as np
@@ -22,11 +23,11 @@ def aux_at_outputs(kernel, t, y, p, regs, out):
 
 def _num(x):
     x = float(x)
-    return x if np.isfinite(x) else None
+    return x if math.isfinite(x) else None
 
 
 def _switches(run):
-    rows = run.swlog[:min(int(run.iw[S.I_NSWITCH]), len(run.swlog))]
+    rows = run.swlog[:min(int(run.iw[S.I_NSWITCH]), len(run.swlog))].tolist()
     out = []
     for r in rows:
         out.append({"t": _num(r[0]), "from": METHOD_NAMES[int(r[1])],
@@ -75,8 +76,8 @@ def _warnings(run, o, y0):
 
 
 def build_report(kernel, run, o, sol, conservation, secs, started) -> dict:
-    iw, fs = run.iw, run.fs
-    steps = {name: int(iw[S.I_STEPS_DOPRI5 + k]) for k, name in enumerate(METHOD_NAMES)}
+    iw, fs = run.iw.tolist(), run.fs.tolist()  # plain numbers: cheaper to read one by one
+    steps = {name: iw[S.I_STEPS_DOPRI5 + k] for k, name in enumerate(METHOD_NAMES)}
     rep = {
         "method": o.method,
         "methods_used": [m for m in METHOD_NAMES if steps[m]],
