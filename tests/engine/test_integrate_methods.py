@@ -138,3 +138,25 @@ def test_dense_output_matches_oracle_between_steps(method):
                     t_eval=times).y.T
     err = np.max(np.abs(many.y - ref) / (atol + rtol * np.abs(ref)))
     assert err < 100  # interpolants are one order below the method (tolerance units)
+
+
+@pytest.mark.parametrize("method", METHODS)
+def test_repeated_calls_give_identical_results(method):
+    # integrate() reuses the arrays of a finished run for the next call of the same
+    # shapes: nothing of one run may leak into the next, whatever ran in between
+    model = K.model(K.ROBERTSON)
+    t_out = np.array([0.0, 1.0, 10.0, 40.0])
+
+    def once(**kw):
+        return integrate(model.kernel, model.p, model.y0, (0.0, 40.0), t_out,
+                         SolverOptions(method=method, rtol=1e-6, atol=1e-10,
+                                       diagnostics="counts", **kw))
+
+    first = once()
+    once(nonnegative=True, first_step=1e-3, max_steps=7)  # a different run in between
+    again = once()
+    np.testing.assert_array_equal(first.y, again.y)
+    for key in ("accepted_steps", "rejected_steps", "rhs_evaluations",
+                "jacobian_evaluations", "lu_factorizations", "switch_count"):
+        assert first.report[key] == again.report[key]
+    assert first.y is not again.y and not np.shares_memory(first.y, again.y)
