@@ -5,7 +5,7 @@ import cmath
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import assume, given, settings, strategies as st
 
 from engine.derivative import gradients, jacobian
 from engine.expr import Builder, evaluate, postorder
@@ -138,5 +138,9 @@ def test_generated_expressions_match_complex_step(text):
     x, p = [0.3, -0.2, 0.9], [1.1]
     (grad,) = gradients(b, [root])
     for j in range(3):
+        try:
+            oracle = complex_step(root, x, p, j)
+        except OverflowError:  # nested cubes of exponentials leave double range: no oracle there
+            assume(False)
         exact = evaluate([grad[j]], 0.0, x, p)[0] if j in grad else 0.0
-        assert exact == pytest.approx(complex_step(root, x, p, j), rel=1e-11, abs=1e-11)
+        assert exact == pytest.approx(oracle, rel=1e-11, abs=1e-11)
