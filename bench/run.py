@@ -6,20 +6,28 @@ work-precision PNG per problem. See docs/benchmarks.md.
 """
 from __future__ import annotations
 
-import argparse
-import datetime as dt
-import json
-import os
-import platform
-import sys
-import time
 from pathlib import Path
 
-import numpy as np
+from engine.cache import configure
 
-from bench import matching, peers as P, problems as PR, report, sweep
-from bench.references import reference
-from bench.timing import measure
+# One numba cache folder per engine source version, before anything imports numba
+# (numba checks a cached function only against its own file: a stale entry can run
+# old code of another engine module).
+configure(Path(__file__).resolve().parent.parent / "var" / "numba-cache")
+
+import argparse  # noqa: E402
+import datetime as dt  # noqa: E402
+import json  # noqa: E402
+import os  # noqa: E402
+import platform  # noqa: E402
+import sys  # noqa: E402
+import time  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+from bench import matching, peers as P, problems as PR, report, sweep  # noqa: E402
+from bench.references import reference  # noqa: E402
+from bench.timing import measure  # noqa: E402
 
 RESULTS = Path(__file__).resolve().parent / "results"
 QUICK_RTOLS = (1e-6,)
