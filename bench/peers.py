@@ -52,9 +52,9 @@ def _too_big(problem: Problem, what: str):
 def engine_run(method: str):
     def run(problem: Problem, rtol: float, cap: float) -> dict:
         from engine.integrate import SolverOptions, integrate
-        if method != "dopri5" and problem.n > DENSE_LIMIT:
-            return _too_big(problem, f"engine/{method}")
         pm = prepare_problem(problem)
+        if method != "dopri5" and problem.n > DENSE_LIMIT and not _engine_sparse(pm.kernel):
+            return _too_big(problem, f"engine/{method}")
         opts = SolverOptions(method=method, rtol=rtol, atol=problem.atol(rtol),
                              max_wall_seconds=cap, diagnostics="counts",
                              max_steps=50_000_000)
@@ -67,6 +67,15 @@ def engine_run(method: str):
                        steps=rep.get("accepted_steps"), nfev=rep.get("rhs_evaluations"),
                        njev=rep.get("jacobian_evaluations"), nlu=rep.get("lu_factorizations"))
     return run
+
+
+def _engine_sparse(kernel) -> bool:
+    """Does the engine take its sparse linear-algebra path for this kernel?"""
+    try:
+        from engine import sparse
+        return bool(sparse.wants_sparse(kernel))
+    except (ImportError, AttributeError):
+        return False
 
 
 # --- SciPy solve_ivp with numpy right-hand sides ---------------------------
