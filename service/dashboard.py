@@ -1,4 +1,5 @@
-"""The dashboard: static pages served by the API; the pages call /v1 themselves.
+"""The dashboard: pages served by the API (templates sharing one layout); the pages'
+scripts call /v1 themselves.
 
 Pages: ``/`` (run board), ``/jobs/<id>`` (one job), ``/submit`` (new run),
 ``/batches`` and ``/batches/<id>`` (sweeps). Assets under ``/ui/``; the example
@@ -10,7 +11,7 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-from flask import Blueprint, abort, send_from_directory
+from flask import Blueprint, abort, make_response, render_template, send_from_directory
 
 bp = Blueprint("dashboard", __name__)
 _STATIC = os.path.join(os.path.dirname(__file__), "static")
@@ -20,7 +21,8 @@ _PAGE_HEADERS = {"Cache-Control": "no-cache", "X-Content-Type-Options": "nosniff
 
 
 def _page(name: str):
-    resp = send_from_directory(_STATIC, name)
+    """A page: service/templates/<name>, laid out by base.html (header, navigation, caution)."""
+    resp = make_response(render_template(name))
     resp.headers.update(_PAGE_HEADERS)
     return resp
 
