@@ -88,9 +88,9 @@ def run_problem(problem, rtols, peers, cap, budget, reps, log) -> tuple[list, di
                         return peer.run(problem, rtol, cap)
                     except Exception as exc:  # a peer's crash is a record, not an abort
                         return {"status": "failed", "message": f"{type(exc).__name__}: {exc}"}
-                # only the engine may spend its first call loading compiled code for this
-                # problem's size; every other slow first run is kept as the sample
-                res = measure(call, budget, reps, jit=peer.family == "engine")
+                # compiled solvers (the engine, and peers with numba right-hand sides) may spend
+                # their first call compiling or loading code; any other slow first run is the sample
+                res = measure(call, budget, reps, jit=peer.family in ("engine", "odeint", "cvode"))
                 if res["status"] == "timeout" and peer.label != "engine/auto":
                     # cost grows as rtol shrinks; engine/auto is always run at every rtol
                     stopped[peer.label] = f"not run: timed out at rtol {rtol:g}"
