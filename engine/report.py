@@ -36,13 +36,19 @@ def _switches(run):
     return out
 
 
+_METHOD_ARRAY = np.array(METHOD_NAMES, dtype=object)
+
+
 def _history(run):
     h = run.hist[:int(run.iw[S.I_HIST_N])]
     if len(h) > MAX_HISTORY:
         h = h[np.linspace(0, len(h) - 1, MAX_HISTORY).round().astype(int)]
-    return {"t": [float(v) for v in h[:, 0]], "h": [float(v) for v in h[:, 1]],
-            "method": [METHOD_NAMES[int(v)] for v in h[:, 2]],
-            "explicit_step": [float(v) if v > 0 else None for v in h[:, 3]]}
+    # whole-column conversions: this runs once per job, over up to MAX_HISTORY rows
+    explicit = h[:, 3].astype(object)
+    explicit[~(h[:, 3] > 0)] = None
+    return {"t": h[:, 0].tolist(), "h": h[:, 1].tolist(),
+            "method": _METHOD_ARRAY[h[:, 2].astype(np.int64)].tolist(),
+            "explicit_step": explicit.tolist()}
 
 
 def _drift(conservation, y0, y):
