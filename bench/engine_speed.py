@@ -15,6 +15,7 @@ import numpy as np
 from numba import njit
 from scipy.integrate import odeint
 
+from bench import jitted as J
 from engine.integrate import SolverOptions, integrate
 from tests.engine import kernels as K
 
@@ -22,59 +23,20 @@ RTOL, ATOL = 1e-6, 1e-10
 
 
 @njit(cache=True)
-def rob_f(y, t):
-    return np.array([-0.04 * y[0] + 1e4 * y[1] * y[2],
-                     0.04 * y[0] - 1e4 * y[1] * y[2] - 3e7 * y[1] ** 2,
-                     3e7 * y[1] ** 2])
+def vdp_f(t, y, p):
+    """Van der Pol, unscaled, mu = p[0] (the form of tests/engine/kernels.py)."""
+    return np.array([y[1], p[0] * (1 - y[0] ** 2) * y[1] - y[0]])
 
 
 @njit(cache=True)
-def rob_j(y, t):
-    return np.array([[-0.04, 1e4 * y[2], 1e4 * y[1]],
-                     [0.04, -1e4 * y[2] - 6e7 * y[1], -1e4 * y[1]],
-                     [0.0, 6e7 * y[1], 0.0]])
+def vdp_df(t, y, p):
+    return np.array([[0.0, 1.0], [-2.0 * p[0] * y[0] * y[1] - 1.0, p[0] * (1 - y[0] ** 2)]])
 
 
-@njit(cache=True)
-def vdp_f(y, t):
-    return np.array([y[1], 1000.0 * (1 - y[0] ** 2) * y[1] - y[0]])
-
-
-@njit(cache=True)
-def vdp_j(y, t):
-    return np.array([[0.0, 1.0], [-2000.0 * y[0] * y[1] - 1.0, 1000.0 * (1 - y[0] ** 2)]])
-
-
-@njit(cache=True)
-def hires_f(y, t):
-    return np.array([
-        -1.71 * y[0] + 0.43 * y[1] + 8.32 * y[2] + 0.0007,
-        1.71 * y[0] - 8.75 * y[1],
-        -10.03 * y[2] + 0.43 * y[3] + 0.035 * y[4],
-        8.32 * y[1] + 1.71 * y[2] - 1.12 * y[3],
-        -1.745 * y[4] + 0.43 * y[5] + 0.43 * y[6],
-        -280 * y[5] * y[7] + 0.69 * y[3] + 1.71 * y[4] - 0.43 * y[5] + 0.69 * y[6],
-        280 * y[5] * y[7] - 1.81 * y[6],
-        -280 * y[5] * y[7] + 1.81 * y[6]])
-
-
-@njit(cache=True)
-def hires_j(y, t):
-    J = np.zeros((8, 8))
-    J[0, 0], J[0, 1], J[0, 2] = -1.71, 0.43, 8.32
-    J[1, 0], J[1, 1] = 1.71, -8.75
-    J[2, 2], J[2, 3], J[2, 4] = -10.03, 0.43, 0.035
-    J[3, 1], J[3, 2], J[3, 3] = 8.32, 1.71, -1.12
-    J[4, 4], J[4, 5], J[4, 6] = -1.745, 0.43, 0.43
-    J[5, 3], J[5, 4], J[5, 5], J[5, 6], J[5, 7] = 0.69, 1.71, -0.43 - 280 * y[7], 0.69, -280 * y[5]
-    J[6, 5], J[6, 6], J[6, 7] = 280 * y[7], -1.81, 280 * y[5]
-    J[7, 5], J[7, 6], J[7, 7] = -280 * y[7], 1.81, -280 * y[5]
-    return J
-
-
-STIFF = [("robertson", K.ROBERTSON, 1e5, rob_f, rob_j),
-         ("hires", K.HIRES, K.HIRES_END, hires_f, hires_j),
-         ("van_der_pol", K.VAN_DER_POL, 3000.0, vdp_f, vdp_j)]
+# odeint peers: (f, Dfun, args), all tfirst; Robertson and HIRES share bench/jitted.py's code
+STIFF = [("robertson", K.ROBERTSON, 1e5, (J.robertson_f, J.robertson_df, (np.array([0.04, 3e7, 1e4]),))),
+         ("hires", K.HIRES, K.HIRES_END, (J.hires_f, J.hires_df, (np.array([280.0]),))),
+         ("van_der_pol", K.VAN_DER_POL, 3000.0, (vdp_f, vdp_df, (np.array([1000.0]),)))]
 
 
 def median_time(fn, repeat):
@@ -91,11 +53,11 @@ def stiff_table(repeat):
     print(f"small stiff problems, rtol {RTOL:g}, atol {ATOL:g}: median ms per solve")
     print(f"{'problem':12s} {'odeint':>8s} " + " ".join(f"{m:>8s}" for m in
                                                      ("auto", "radau5", "rodas", "lean")))
-    for name, spec, t_end, f, j in STIFF:
+    for name, spec, t_end, (f, j, args) in STIFF:
         m = K.model(spec)
         t_out = np.array([0.0, t_end])
-        ref = median_time(lambda: odeint(f, m.y0, t_out, Dfun=j, rtol=RTOL, atol=ATOL,
-                                         mxstep=100000), repeat)
+        ref = median_time(lambda: odeint(f, m.y0, t_out, args=args, Dfun=j, tfirst=True, rtol=RTOL,
+                                         atol=ATOL, mxstep=100000), repeat)
         row = [ref]
         for method, diag in (("auto", "full"), ("radau5", "full"), ("rodas", "full"),
                              ("auto", "counts")):

@@ -10,24 +10,10 @@ import json
 import pytest
 
 from tests.conftest import example_path
-from tests.dashboard.browser import SIZES, Browser, require_browser
 
 pytestmark = pytest.mark.e2e
 DEMO = example_path("jobs", "lakeside_demo.json")
 
-
-@pytest.fixture(scope="module")
-def playwright():
-    sync_api = require_browser()
-    with sync_api.sync_playwright() as pw:
-        yield pw
-
-
-@pytest.fixture(params=list(SIZES))
-def browser(request, playwright):
-    b = Browser(playwright, request.param)
-    yield b
-    b.close()
 
 
 def submit_demo_from_the_page(b, base) -> str:

@@ -6,7 +6,6 @@ import pytest
 
 from tests.client.batch_specs import BLOWUP
 from tests.conftest import example_path
-from tests.dashboard.browser import SIZES, Browser, require_browser
 
 pytestmark = pytest.mark.e2e
 
@@ -29,19 +28,6 @@ def submit(stack, spec) -> str:
     assert r.status_code == 202, r.text
     return r.json()["id"]
 
-
-@pytest.fixture(scope="module")
-def playwright():
-    sync_api = require_browser()
-    with sync_api.sync_playwright() as pw:
-        yield pw
-
-
-@pytest.fixture(params=list(SIZES))
-def browser(request, playwright):
-    b = Browser(playwright, request.param)
-    yield b
-    b.close()
 
 
 def test_a_sweep_page_shows_progress_scatter_histograms_and_sorts(browser, stack):
