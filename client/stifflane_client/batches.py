@@ -1,14 +1,12 @@
 """Batches (sweeps): submit, follow, fetch the summary table as arrays; mixed into ``Client``."""
 from __future__ import annotations
 
-import time
 import uuid
 from dataclasses import dataclass, field
 
 import numpy as np
 
-from stifflane_client.errors import WaitTimeout
-from stifflane_client.progress import progress_bar
+from stifflane_client.progress import poll_until_done
 from stifflane_client.results import _array
 from stifflane_client.spec import load_spec
 
@@ -102,23 +100,13 @@ class BatchesMixin:
     def wait_batch(self, batch_id: str, timeout: float | None = None, progress: bool = False,
                    poll: float = 0.5, max_poll: float = 3.0) -> Batch:
         """Poll until the batch ends; the bar shows members done and failed."""
-        bar = progress_bar(f"batch {batch_id}", enabled=progress)
-        deadline = None if timeout is None else time.monotonic() + timeout
-        delay = poll
-        try:
-            while True:
-                b = self.batch(batch_id)
-                p = b.view.get("progress") or {}
-                bar.update_to(float(p.get("fraction") or 0.0),
-                              f"{b.view.get('state', '')} {p.get('succeeded', 0)} ok {p.get('failed', 0)} failed")
-                if b.done:
-                    return b
-                if deadline is not None and time.monotonic() > deadline:
-                    raise WaitTimeout(f"batch {batch_id} still {b.view.get('state')} after {timeout} s")
-                time.sleep(delay)
-                delay = min(max_poll, delay * 1.5)
-        finally:
-            bar.close()
+        def describe(b: Batch) -> tuple[float, str]:
+            p = b.view.get("progress") or {}
+            return (float(p.get("fraction") or 0.0),
+                    f"{b.view.get('state', '')} {p.get('succeeded', 0)} ok {p.get('failed', 0)} failed")
+
+        return poll_until_done(lambda: self.batch(batch_id), describe, f"batch {batch_id}",
+                               timeout, progress, poll, max_poll)
 
     def batch_table(self, batch_id: str) -> BatchTable:
         """The summary table (partial while the batch runs: ``complete`` is False)."""

@@ -9,8 +9,8 @@ from typing import Iterator
 import requests
 
 from stifflane_client.batches import BatchesMixin
-from stifflane_client.errors import JobFailed, WaitTimeout
-from stifflane_client.progress import progress_bar
+from stifflane_client.errors import JobFailed
+from stifflane_client.progress import poll_until_done
 from stifflane_client.results import Result
 from stifflane_client.spec import load_spec
 from stifflane_client.transport import Transport
@@ -117,23 +117,10 @@ class Client(BatchesMixin):
     def wait(self, job_id: str, timeout: float | None = None, progress: bool = False,
              poll: float = 0.25, max_poll: float = 2.0, on_update=None) -> Job:
         """Poll until the job is succeeded, failed or cancelled; returns its last view."""
-        bar = progress_bar(f"job {job_id}", enabled=progress)
-        deadline = None if timeout is None else time.monotonic() + timeout
-        delay = poll
-        try:
-            while True:
-                job = self.job(job_id)
-                bar.update_to(float(job.view.get("progress") or 0.0), job.view.get("state", ""))
-                if on_update:
-                    on_update(job)
-                if job.done:
-                    return job
-                if deadline is not None and time.monotonic() > deadline:
-                    raise WaitTimeout(f"job {job_id} still {job.view.get('state')} after {timeout} s")
-                time.sleep(delay)
-                delay = min(max_poll, delay * 1.5)
-        finally:
-            bar.close()
+        return poll_until_done(
+            lambda: self.job(job_id),
+            lambda job: (float(job.view.get("progress") or 0.0), job.view.get("state", "")),
+            f"job {job_id}", timeout, progress, poll, max_poll, on_update)
 
     def run(self, spec, timeout: float | None = None, progress: bool = False) -> Result:
         """Submit, wait and fetch the result; raises JobFailed if there is none."""

@@ -2,6 +2,12 @@
 from __future__ import annotations
 
 import sys
+import time
+from typing import Callable, TypeVar
+
+from stifflane_client.errors import WaitTimeout
+
+T = TypeVar("T")
 
 
 class _Plain:
@@ -53,3 +59,27 @@ def progress_bar(desc: str, enabled=True, stream=None):
         return _Tqdm(desc, stream)
     except ImportError:
         return _Plain(desc, stream)
+
+
+def poll_until_done(fetch: Callable[[], T], describe: Callable[[T], tuple[float, str]], label: str,
+                    timeout: float | None, progress: bool, poll: float, max_poll: float,
+                    on_update: Callable[[T], None] | None = None) -> T:
+    """Fetch until ``.done``, backing off from ``poll`` to ``max_poll`` seconds; raise
+    WaitTimeout after ``timeout``. ``describe`` gives the bar's fraction and text."""
+    bar = progress_bar(label, enabled=progress)
+    deadline = None if timeout is None else time.monotonic() + timeout
+    delay = poll
+    try:
+        while True:
+            item = fetch()
+            bar.update_to(*describe(item))
+            if on_update:
+                on_update(item)
+            if item.done:
+                return item
+            if deadline is not None and time.monotonic() > deadline:
+                raise WaitTimeout(f"{label} still {item.view.get('state')} after {timeout} s")
+            time.sleep(delay)
+            delay = min(max_poll, delay * 1.5)
+    finally:
+        bar.close()
