@@ -47,7 +47,8 @@ class SwitchPolicy:
     nonstiff_tests: int = 6        # consecutive "explicit would do" tests
     back_ratio: float = 1.0        # boundary/rho >= back_ratio * h_implicit
     min_steps: int = 20            # hysteresis: steps before another switch
-    radau_below_rtol: float = 1e-7  # implicit method: radau5 below, rodas above
+    radau_below_rtol: float = 5e-4  # implicit method: radau5 below, rodas at looser rtol
+    # (chosen at matched accuracy on the benchmark suite: docs/engine.md)
     reset_after: int = 6           # non-stiff tests that clear the stiff count
     power_iterations: int = 6      # per Jacobian, warm-started
     stiff_threshold: float = 2.5   # h*rho above this is a positive test: below the
