@@ -30,8 +30,37 @@ def wants_sparse(kernel) -> bool:
     return n > SPARSE_MIN_N and len(kernel.jac_rows) < SPARSE_MAX_DENSITY * n * n
 
 
+class Factors:
+    """SuperLU factors of P A P^T for the fill-reducing permutation P (``perm``:
+    old index -> new index); ``solve`` takes and returns vectors of A's order."""
+
+    __slots__ = ("lu", "perm", "inv")
+
+    def __init__(self, lu, perm, inv):
+        self.lu, self.perm, self.inv = lu, perm, inv
+
+    def solve(self, b):
+        if self.perm is None:
+            return self.lu.solve(b)
+        return self.lu.solve(b[self.inv])[self.perm]
+
+
+# SuperLU supernode relaxation and panel size: small supernodes suit the sparse
+# grids this path sees (2-D Brusselator, 2048 states: 3.4 ms per factorisation
+# against 4.3 ms with the library defaults; no difference at 32768 states).
+RELAX = 2
+PANEL_SIZE = 8
+
+
 class Pattern:
-    """CSC structure of J + diagonal, with the data slots of each COO entry."""
+    """CSC structure of J + diagonal, with the data slots of each COO entry.
+
+    The fill-reducing column ordering (minimum degree on A^T + A, which suits
+    the structurally symmetric patterns of reaction-diffusion grids: half the
+    fill of COLAMD, measured) depends on the structure only: it is computed by
+    the first factorisation, and later ones factor the symmetrically permuted
+    matrix P A P^T, assembled directly in permuted CSC order, with the natural
+    ordering (same fill, no ordering cost)."""
 
     def __init__(self, kernel):
         n = kernel.n
@@ -46,18 +75,46 @@ class Pattern:
         self.pos_j = inverse[:nnz]
         self.pos_d = inverse[nnz:]
         self.data = np.zeros(len(uniq))
+        self.perm = self.inv = None
+        self.p_indices = self.p_indptr = self.p_pos_j = self.p_pos_d = None
 
-    def factor(self, vals, shift):
+    def _set_order(self, perm_c):
+        """Permuted CSC structure for B = P A P^T, B[perm[i], perm[j]] = A[i, j]."""
+        n = self.n
+        perm = np.asarray(perm_c, dtype=np.int64)
+        cols = np.repeat(np.arange(n), np.diff(self.indptr))
+        new_r = perm[self.indices]
+        new_c = perm[cols]
+        order = np.argsort(new_c * n + new_r, kind="stable")
+        slot = np.empty(len(order), dtype=np.int64)
+        slot[order] = np.arange(len(order))
+        self.p_indices = new_r[order].astype(np.int32)
+        self.p_indptr = np.searchsorted(new_c[order], np.arange(n + 1)).astype(np.int32)
+        self.p_pos_j = slot[self.pos_j]
+        self.p_pos_d = slot[self.pos_d]
+        self.perm = perm
+        self.inv = np.argsort(perm)
+
+    def factor(self, vals, shift, scale=1.0):
+        """Factors of shift I - scale J (J's COO values in ``vals``)."""
         d = self.data
         d[:] = 0.0
-        d[self.pos_j] = -vals  # COO entries are unique
-        d[self.pos_d] += shift
-        A = csc_matrix((d, self.indices, self.indptr), shape=(self.n, self.n))
-        # Minimum degree on A^T + A suits the structurally symmetric patterns of
-        # reaction-diffusion grids (half the fill of COLAMD, measured); prefer
-        # diagonal pivots unless they are small.
-        return splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1,
-                    options={"SymmetricMode": True})
+        first = self.perm is None
+        pos_j, pos_d = (self.pos_j, self.pos_d) if first else (self.p_pos_j, self.p_pos_d)
+        d[pos_j] = vals * -scale  # COO entries are unique
+        d[pos_d] += shift
+        if first:
+            A = csc_matrix((d, self.indices, self.indptr), shape=(self.n, self.n))
+            lu = splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1, relax=RELAX,
+                      panel_size=PANEL_SIZE, options={"SymmetricMode": True})
+            self._set_order(lu.perm_c)
+            return Factors(lu, None, None)
+        B = csc_matrix((d, self.p_indices, self.p_indptr), shape=(self.n, self.n))
+        B.has_sorted_indices = True
+        # prefer diagonal pivots unless they are small
+        lu = splu(B, permc_spec="NATURAL", diag_pivot_thresh=0.1, relax=RELAX,
+                  panel_size=PANEL_SIZE, options={"SymmetricMode": True})
+        return Factors(lu, self.perm, self.inv)
 
     def spectral_radius(self, vals, v, iters=6):
         """Power-iteration estimate on the sparse J (geometric mean of growth)."""
