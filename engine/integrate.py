@@ -17,7 +17,7 @@ from typing import Callable, Optional
 import numpy as np
 
 from engine import bdf, driver, sparse, state as S, vm
-from engine.report import build_report
+from engine.report import aux_at_outputs, build_report
 from engine.switching import SwitchPolicy
 from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
 
@@ -111,6 +111,9 @@ class _Run:
         self.buffers = [a.base for a in (self.y, self.piv, self.LUc)]
         self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
         self.fresh = True
+        self.pol = self.pol_of = None
+        self.no_dir = np.zeros(ne, dtype=np.int64)   # event directions / terminal flags
+        self.no_term = np.zeros(ne, dtype=np.bool_)  # when the options give none
         self.code_seen = None
         self.has_time = 0
 
@@ -125,14 +128,15 @@ class _Run:
         self.y[:] = y0
         self.y0[:] = y0
         self.atol[:] = o.atol
-        self.p = np.ascontiguousarray(p, dtype=np.float64)
-        self.pol = o.policy.as_array()
+        self.p = p if _plain(p) else np.array(p, dtype=np.float64)  # a writeable copy
+        if self.pol_of is not o.policy:  # a sweep passes the same policy every time
+            self.pol, self.pol_of = o.policy.as_array(), o.policy
         if o.nonnegative is not False and o.nonnegative is not None:
             self.V[S.V_NNMASK] = o.nonnegative
         self.t_out = t_out
-        self.ev_dir = (np.zeros(ne, dtype=np.int64) if o.event_directions is None
+        self.ev_dir = (self.no_dir if o.event_directions is None
                        else np.asarray(o.event_directions, dtype=np.int64))
-        self.ev_term = (np.zeros(ne, dtype=np.bool_) if o.event_terminal is None
+        self.ev_term = (self.no_term if o.event_terminal is None
                         else np.asarray(o.event_terminal, dtype=np.bool_))
         fs = self.fs
         fs[S.F_T] = fs[S.F_T0] = t0
@@ -210,6 +214,13 @@ def _give_back(kernel, run, o):
     if len(free) < POOL_PER_KEY:
         run.p = run.t_out = None  # hold no caller arrays
         free.append(run)
+
+
+def _plain(a) -> bool:
+    """A writeable C-contiguous float64 numpy array: the compiled loop takes it as it is
+    (a read-only array is another type to numba and would compile the loop again)."""
+    f = a.flags if type(a) is np.ndarray else None
+    return f is not None and a.dtype == np.float64 and f.c_contiguous and f.writeable
 
 
 def _carve(dtype, *shapes):
@@ -354,5 +365,4 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
 
 
 def driver_aux(kernel, t, y, p, regs, out):
-    from engine.report import aux_at_outputs
     aux_at_outputs(kernel, t, y, p, regs, out)
