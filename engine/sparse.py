@@ -31,8 +31,8 @@ def wants_sparse(kernel) -> bool:
 
 
 class Factors:
-    """SuperLU factors of P A P^T for the fill-reducing permutation P (``perm``:
-    old index -> new index); ``solve`` takes and returns vectors of A's order."""
+    """SuperLU factors ``lu`` of P A P^T for a permutation P (``perm``: old index
+    -> new index, ``inv`` its inverse); ``solve`` works in A's order."""
 
     __slots__ = ("lu", "perm", "inv")
 
@@ -40,8 +40,6 @@ class Factors:
         self.lu, self.perm, self.inv = lu, perm, inv
 
     def solve(self, b):
-        if self.perm is None:
-            return self.lu.solve(b)
         return self.lu.solve(b[self.inv])[self.perm]
 
 
@@ -108,7 +106,8 @@ class Pattern:
             lu = splu(A, permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.1, relax=RELAX,
                       panel_size=PANEL_SIZE, options={"SymmetricMode": True})
             self._set_order(lu.perm_c)
-            return Factors(lu, None, None)
+            ident = np.arange(self.n)
+            return Factors(lu, ident, ident)
         B = csc_matrix((d, self.p_indices, self.p_indptr), shape=(self.n, self.n))
         B.has_sorted_indices = True
         # prefer diagonal pivots unless they are small
