@@ -38,6 +38,7 @@ GROWTH_FIRST = 1e4  # ... except at the first decision (the starting step is tin
 GROWTH_MIN = 1.5    # smaller increases are not taken (each may cost a factorisation)
 NEF_ORDER1 = 3      # error-test failures in a row that restart at order 1
 CRDOWN = 0.3        # decay of the remembered Newton contraction rate
+JAC_AGE = 50
 LU_RATIO = 1.5      # factors kept while c / c_LU stays in [1/LU_RATIO, LU_RATIO]
 KAPPA = np.array([0.0, -0.1850, -1 / 9, -0.0823, -0.0415, 0.0])
 GAMMA = np.hstack((0.0, np.cumsum(1.0 / np.arange(1, MAX_ORDER + 1))))
@@ -146,6 +147,16 @@ def _accept(D, order, W, ynew, cont):
             cont[i, j] = D[i, j] if i <= order else 0.0
 
 
+def _stale_ratio(c, c_lu, rho):
+    """Largest ratio (1 + c mu) / (1 + c_LU mu) over the eigenvalues -mu of a
+    dissipative J with |mu| <= rho: how far the factored I - c_LU J is from the
+    wanted I - c J. It is c / c_LU for very stiff steps, and near 1 while c rho
+    and c_LU rho are small (non-stiff steps need no new factors)."""
+    if not rho > 0.0 or rho == np.inf:
+        return c / c_lu
+    return (1.0 + c * rho) / (1.0 + c_lu * rho)
+
+
 def _newton(kernel, run, fac, t_new, c, W, tol):
     """Simplified Newton on d with the factors of I - c_LU J.
 
@@ -155,7 +166,7 @@ def _newton(kernel, run, fac, t_new, c, W, tol):
     2 / (1 + c / c_LU). Returns (converged, iterations, non-finite f)."""
     f = run.V[S.V_YTMP]
     y = W[W_Y]
-    ratio = c / run.fs[S.F_H_LU]
+    ratio = _stale_ratio(c, run.fs[S.F_H_LU], run.fs[S.F_RHO])
     s = 2.0 / (1.0 + ratio) if ratio != 1.0 else 1.0
     # the stale c_LU alone limits the contraction to |c - c_LU| / (c + c_LU)
     crate = max(run.bdf_crate, abs(ratio - 1.0) / (ratio + 1.0))
@@ -184,6 +195,7 @@ def _jacobian(kernel, run, pattern, t, y):
     vm.jac_values(kernel, t, y, run.p, run.regs, run.jv)
     run.iw[S.I_NJEV] += 1
     run.iw[S.I_JAC_CURRENT] = 1
+    run.bdf_jac_step = run.iw[S.I_ACCEPTED]
     rho = pattern.spectral_radius(run.jv, run.V[S.V_PV])
     run.fs[S.F_RHO] = rho
     run.fs[S.F_HEXP] = run.pol[P_BOUNDARY] / rho if rho > 0 else np.inf
@@ -200,12 +212,17 @@ def step(kernel, run, pattern, h):
     rtol = fs[S.F_RTOL]
     _predict(D, order, GAMMA, ALPHA[order], run.atol, rtol, W)
     c = h / ALPHA[order]
+    if iw[S.I_ACCEPTED] - run.bdf_jac_step >= JAC_AGE and iw[S.I_JAC_CURRENT] != 1:
+        # Refresh an old Jacobian even while Newton converges (its spectral
+        # radius decides when factors may be kept); the factors are kept until
+        # c moves or Newton struggles.
+        _jacobian(kernel, run, pattern, t_new, W[W_PRED])
     while True:
         # Keep the factors while c = h / alpha stays within a factor LU_RATIO of
         # the factored value: with the corrections scaled by 2 / (1 + c / c_LU)
         # Newton still contracts by |c - c_LU| / (c + c_LU) <= 1/3 on stiff and
         # non-stiff components alike, and factorisations dominate the cost.
-        r = c / fs[S.F_H_LU] if iw[S.I_LU_VALID] else 0.0
+        r = _stale_ratio(c, fs[S.F_H_LU], fs[S.F_RHO]) if iw[S.I_LU_VALID] else 0.0
         if not (1.0 / LU_RATIO <= r <= LU_RATIO):
             iw[S.I_NLU] += 1
             try:
@@ -214,6 +231,7 @@ def step(kernel, run, pattern, h):
                 return _reject(run, h, 0.5, S.FAIL_SINGULAR, order)
             iw[S.I_LU_VALID] = 1
             fs[S.F_H_LU] = c
+            run.bdf_lu_njev = iw[S.I_NJEV]
             run.bdf_crate = 1.0
         ok, nit, nonfinite = _newton(kernel, run, run.sparse_lu, t_new, c, W,
                                      NEWTON_COEF / ERROR_CONST[order])
@@ -221,10 +239,11 @@ def step(kernel, run, pattern, h):
         if ok:
             break
         iw[S.I_NEWTON_FAIL] += 1
-        if iw[S.I_JAC_CURRENT] == 1 or nonfinite:
+        if nonfinite or (iw[S.I_JAC_CURRENT] == 1 and run.bdf_lu_njev == iw[S.I_NJEV]):
             return _reject(run, h, 0.5, S.FAIL_NONFINITE if nonfinite else S.FAIL_NEWTON,
                            order)
-        _jacobian(kernel, run, pattern, t_new, W[W_PRED])
+        if iw[S.I_JAC_CURRENT] != 1:
+            _jacobian(kernel, run, pattern, t_new, W[W_PRED])
         iw[S.I_LU_VALID] = 0
         W[W_Y] = W[W_PRED]
         W[W_D] = 0.0
@@ -329,11 +348,22 @@ def advance(kernel, run, pattern, budget):
     """Python twin of engine.driver.advance for the sparse BDF path."""
     fs, iw = run.fs, run.iw
     m = len(run.t_out)
-    if iw[S.I_ACCEPTED] + iw[S.I_REJECTED] == 0 and iw[S.I_NJEV] == 0:
+    if getattr(run, "bdf_work", None) is None:
+        run.bdf_work = np.zeros((6, run.D.shape[1]))  # rows W_Y .. W_B
+        run.bdf_crate = 1.0   # Newton contraction rate, kept across steps
+        run.bdf_nef = 0       # error-test failures in a row
+        run.bdf_lu_njev = -1  # Jacobian evaluation the factors were made with
+        run.bdf_jac_step = 0  # accepted steps at the last Jacobian evaluation
+    done = iw[S.I_ACCEPTED] + iw[S.I_REJECTED]
+    if getattr(run, "bdf_seen", -1) != done:
+        # First call, or another method stepped since the last one (auto enters
+        # BDF when the problem turns stiff): start again at order 1 from y.
+        if done > 0:
+            vm.rhs(kernel, fs[S.F_T], run.y, run.p, run.regs, run.V[S.V_F0])
+            iw[S.I_NFEV] += 1
         init(run, fs[S.F_H])
         _jacobian(kernel, run, pattern, fs[S.F_T], run.y)
-    if getattr(run, "bdf_work", None) is None or run.bdf_work.shape[1] != run.D.shape[1]:
-        run.bdf_work = np.zeros((6, run.D.shape[1]))
+        iw[S.I_LU_VALID] = 0
         run.bdf_crate = 1.0
         run.bdf_nef = 0
     steps = 0
@@ -369,3 +399,4 @@ def advance(kernel, run, pattern, budget):
             iw[S.I_EQUAL_STEPS] = 0
         steps += 1
         step(kernel, run, pattern, h)
+    run.bdf_seen = iw[S.I_ACCEPTED] + iw[S.I_REJECTED]
