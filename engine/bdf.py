@@ -24,6 +24,8 @@ from numba import njit
 from engine import state as S, vm
 from engine.driver import EPS, _finish
 from engine.errors_norm import err_norm_scaled
+from engine.state import (F_H, F_RTOL, I_EQUAL_STEPS, I_JAC_CURRENT, I_NONNEG,
+                          I_NONNEG_REJECTS, V_NNMASK, V_YNEW)
 from engine.switching import P_BOUNDARY
 
 MAX_ORDER = 5
@@ -46,19 +48,46 @@ ALPHA = (1.0 - KAPPA) * GAMMA
 ERROR_CONST = KAPPA * GAMMA + 1.0 / np.arange(1, MAX_ORDER + 2)
 
 
-def _R(order, factor):
-    i = np.arange(1, order + 1)[:, None]
-    j = np.arange(1, order + 1)
-    M = np.zeros((order + 1, order + 1))
-    M[1:, 1:] = (i - 1 - factor * j) / i
-    M[0] = 1.0
-    return np.cumprod(M, axis=0)
+@njit(cache=True, nogil=True, _nrt=False)
+def _R_into(order, factor, M):
+    """M[:order+1, :order+1] = the difference-rescaling matrix R(factor)."""
+    for j in range(order + 1):
+        M[0, j] = 1.0
+    for i in range(1, order + 1):
+        for j in range(order + 1):
+            M[i, j] = M[i - 1, j] * ((i - 1 - factor * j) / i if j > 0 else 0.0)
 
 
-def change_D(D, order, factor):
-    """Rescale the difference array for a step-size change by ``factor``."""
-    RU = _R(order, factor) @ _R(order, 1.0)
-    D[:order + 1] = RU.T @ D[:order + 1]
+@njit(cache=True, nogil=True, _nrt=False)
+def _change_D(D, order, factor, R, U, RU, tmp):
+    _R_into(order, factor, R)
+    _R_into(order, 1.0, U)
+    k = order + 1
+    for i in range(k):
+        for j in range(k):
+            acc = 0.0
+            for m in range(k):
+                acc += R[i, m] * U[m, j]
+            RU[i, j] = acc
+    n = D.shape[1]
+    for j in range(k):
+        for col in range(n):
+            tmp[j, col] = 0.0
+        for i in range(k):
+            a = RU[i, j]
+            for col in range(n):
+                tmp[j, col] += a * D[i, col]
+    for j in range(k):
+        for col in range(n):
+            D[j, col] = tmp[j, col]
+
+
+def change_D(D, order, factor, scratch):
+    """Rescale the difference array for a step-size change by ``factor``
+    (D[:order+1] <- (R(factor) R(1))^T D[:order+1]); ``scratch`` has at least
+    order + 1 rows of D's length."""
+    sc = np.empty((3, MAX_ORDER + 1, MAX_ORDER + 1))
+    _change_D(D, order, float(factor), sc[0], sc[1], sc[2], scratch)
 
 
 def init(run, h):
@@ -92,8 +121,10 @@ def _predict(D, order, gamma, alpha, atol, rtol, W):
 
 
 @njit(cache=True, nogil=True, _nrt=False)
-def _residual(c, f, W, inv):
-    """b = c f - psi - d in the factor's (permuted) order; False if f is not finite."""
+def _residual(kernel, t, p, regs, f, c, W, inv):
+    """f = f(t, y); b = c f - psi - d in the factor's (permuted) order; False if
+    f is not finite."""
+    vm.rhs(kernel, t, W[W_Y], p, regs, f)
     b = W[W_B]
     for i in range(b.shape[0]):
         k = inv[i]
@@ -139,12 +170,18 @@ def _accept(D, order, W, ynew, cont):
         dj = W[W_D, j]
         D[order + 2, j] = dj - D[order + 1, j]
         D[order + 1, j] = dj
-        for i in range(order, -1, -1):
+    for i in range(order, -1, -1):
+        for j in range(n):
             D[i, j] += D[i + 1, j]
+    for j in range(n):
         ynew[j] = W[W_Y, j]
     for i in range(cont.shape[0]):
-        for j in range(n):
-            cont[i, j] = D[i, j] if i <= order else 0.0
+        if i <= order:
+            for j in range(n):
+                cont[i, j] = D[i, j]
+        else:
+            for j in range(n):
+                cont[i, j] = 0.0
 
 
 def _stale_ratio(c, c_lu, rho):
@@ -157,6 +194,35 @@ def _stale_ratio(c, c_lu, rho):
     return (1.0 + c * rho) / (1.0 + c_lu * rho)
 
 
+C_ACCEPTED, C_TERMINAL, C_ERROR, C_NEGATIVE, C_NONFINITE = range(5)
+
+
+@njit(cache=True, nogil=True, _nrt=False)
+def _conclude(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev_dir,
+              ev_term, ev_t, ev_i, ev_y, hist, h, D, order, W, ec):
+    """Error test of a converged step; when it passes (and no state that must
+    stay non-negative is below -scale) update the differences and book the
+    step. Returns (error norm, C_* code)."""
+    err = _error(W, atol, fs[F_RTOL], ec)
+    if not err < np.inf:
+        return err, C_NONFINITE
+    if err > 1.0:
+        return err, C_ERROR
+    if iw[I_NONNEG]:
+        for j in range(W.shape[1]):
+            if V[V_NNMASK, j] != 0.0 and W[W_Y, j] < -W[W_SCALE, j]:
+                iw[I_NONNEG_REJECTS] += 1
+                return err, C_NEGATIVE
+    iw[I_JAC_CURRENT] = 0
+    _accept(D, order, W, V[V_YNEW], cont)
+    iw[I_EQUAL_STEPS] += 1
+    fs[F_H] = h
+    if _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev_dir,
+               ev_term, ev_t, ev_i, ev_y, hist, h):
+        return err, C_TERMINAL
+    return err, C_ACCEPTED
+
+
 def _newton(kernel, run, fac, t_new, c, W, tol):
     """Simplified Newton on d with the factors of I - c_LU J.
 
@@ -164,19 +230,18 @@ def _newton(kernel, run, fac, t_new, c, W, tol):
     when the correction times the estimated contraction rate (kept across
     steps) is below ``tol``; a correction made with a stale c_LU is scaled by
     2 / (1 + c / c_LU). Returns (converged, iterations, non-finite f)."""
-    f = run.V[S.V_YTMP]
-    y = W[W_Y]
+    f, iw, p, regs = run.V[S.V_YTMP], run.iw, run.p, run.regs
+    lu, perm, inv = fac.lu, fac.perm, fac.inv
     ratio = _stale_ratio(c, run.fs[S.F_H_LU], run.fs[S.F_RHO])
     s = 2.0 / (1.0 + ratio) if ratio != 1.0 else 1.0
     # the stale c_LU alone limits the contraction to |c - c_LU| / (c + c_LU)
     crate = max(run.bdf_crate, abs(ratio - 1.0) / (ratio + 1.0))
     old = 0.0
     for k in range(NEWTON_MAXITER):
-        vm.rhs(kernel, t_new, y, run.p, run.regs, f)
-        run.iw[S.I_NFEV] += 1
-        if not _residual(c, f, W, fac.inv):
+        iw[S.I_NFEV] += 1
+        if not _residual(kernel, t_new, p, regs, f, c, W, inv):
             return False, k + 1, True
-        dn = _correct(fac.lu.solve(W[W_B]), fac.perm, s, W)
+        dn = _correct(lu.solve(W[W_B]), perm, s, W)
         if k > 0:
             rate = dn / old
             crate = max(CRDOWN * crate, rate)
@@ -248,27 +313,18 @@ def step(kernel, run, pattern, h):
         W[W_Y] = W[W_PRED]
         W[W_D] = 0.0
     safety = SAFETY
-    err = _error(W, run.atol, rtol, ERROR_CONST[order])
-    if not err < np.inf:
+    err, code = _conclude(kernel, run.p, run.regs, run.y, run.atol, fs, iw, run.V, run.cont,
+                          run.pol, run.t_out, run.y_out, run.gv, run.ev_dir, run.ev_term,
+                          run.ev_t, run.ev_i, run.ev_y, run.hist, h, D, order, W,
+                          ERROR_CONST[order])
+    if code == C_NONFINITE:
         return _reject(run, h, 0.25, S.FAIL_NONFINITE, order)
-    if err > 1.0:
+    if code == C_ERROR:
         return _reject_error(run, h, order, err, safety)
-    if iw[S.I_NONNEG]:
-        mask = run.V[S.V_NNMASK] != 0
-        if np.any(mask & (W[W_Y] < -W[W_SCALE])):
-            iw[S.I_NONNEG_REJECTS] += 1
-            return _reject(run, h, 0.5, S.FAIL_ERROR, order)
-    # accepted: update the differences
-    iw[S.I_JAC_CURRENT] = 0
+    if code == C_NEGATIVE:
+        return _reject(run, h, 0.5, S.FAIL_ERROR, order)
     run.bdf_nef = 0
-    _accept(D, order, W, run.V[S.V_YNEW], run.cont)
-    iw[S.I_EQUAL_STEPS] += 1
-    fs[S.F_H] = h
-    if _finish(kernel, run.p, run.regs, run.y, run.atol, fs, iw, run.V, run.cont, run.pol,
-               run.t_out, run.y_out, run.gv, run.ev_dir, run.ev_term, run.ev_t, run.ev_i,
-               run.ev_y, run.hist, h):
-        return True
-    if iw[S.I_EQUAL_STEPS] < order + 1:
+    if code == C_TERMINAL or iw[S.I_EQUAL_STEPS] < order + 1:
         return True
     _choose_order(run, order, err, safety, W[W_SCALE])
     return True
@@ -277,22 +333,29 @@ def step(kernel, run, pattern, h):
 def _choose_order(run, order, err, safety, scale):
     """Order and step after order+1 equal steps (Shampine & Reichelt 1997)."""
     D, iw, fs = run.D, run.iw, run.fs
-    em = err_norm_scaled(ERROR_CONST[order - 1] * D[order], scale) if order > 1 else np.inf
-    ep = (err_norm_scaled(ERROR_CONST[order + 1] * D[order + 2], scale)
-          if order < MAX_ORDER else np.inf)
-    norms = np.array([em, err, ep])
-    with np.errstate(divide="ignore"):
-        factors = norms ** (-1.0 / np.arange(order, order + 3))
+    # step factors for orders order-1, order, order+1 (error ~ h^(k+1))
+    fm = fp = 0.0
+    if order > 1:
+        em = ERROR_CONST[order - 1] * err_norm_scaled(D[order], scale)
+        fm = em ** (-1.0 / order) if em > 0 else math.inf
+    if order < MAX_ORDER:
+        ep = ERROR_CONST[order + 1] * err_norm_scaled(D[order + 2], scale)
+        fp = ep ** (-1.0 / (order + 2)) if ep > 0 else math.inf
+    f0 = err ** (-1.0 / (order + 1)) if err > 0 else math.inf
     first = iw[S.I_ACCEPTED] == order + 1 and iw[S.I_REJECTED] == 0
-    change = int(np.argmax(factors)) - 1
+    change, best = -1, fm  # the largest factor wins; ties go to the lower order
+    if f0 > best:
+        change, best = 0, f0
+    if fp > best:
+        change, best = 1, fp
     order += change
     iw[S.I_ORDER] = order
-    factor = safety * float(np.max(factors))
+    factor = safety * best
     if change == 0 and 1.0 <= factor < GROWTH_MIN:
         factor = 1.0
     factor = min(GROWTH_FIRST if first else GROWTH, factor)
     fs[S.F_H] *= factor
-    change_D(D, order, factor)
+    change_D(D, order, factor, run.bdf_work)
     iw[S.I_EQUAL_STEPS] = 0
 
 
@@ -337,7 +400,7 @@ def _reject(run, h, factor, kind, order):
     if kind == S.FAIL_NONFINITE:
         fs[S.F_T_BAD] = fs[S.F_T] + h
     fs[S.F_H] = h * factor
-    change_D(run.D, order, factor)
+    change_D(run.D, order, factor, run.bdf_work)
     iw[S.I_EQUAL_STEPS] = 0
     if kind != S.FAIL_ERROR:  # after an error-test failure the factors still serve
         iw[S.I_LU_VALID] = 0
@@ -394,7 +457,7 @@ def advance(kernel, run, pattern, budget):
                               else S.ST_STEP_UNDERFLOW)
             break
         if h != h_d:  # keep D scaled for the step about to be taken
-            change_D(run.D, int(iw[S.I_ORDER]), h / h_d)
+            change_D(run.D, int(iw[S.I_ORDER]), h / h_d, run.bdf_work)
             fs[S.F_H] = h
             iw[S.I_EQUAL_STEPS] = 0
         steps += 1
