@@ -3,16 +3,24 @@
 The numerical differentiation formulas of Shampine & Reichelt (1997, SIAM J.
 Sci. Comput. 18:1-22), in the modified-divided-difference form of the BDF
 codes (Byrne & Hindmarsh 1975): the array D holds backward differences of the
-solution on an equidistant grid and is rescaled when the step changes. One
-sparse LU of I - c J (scipy.sparse.linalg.splu, see ``engine.sparse``) serves
-many steps and Newton iterations (corrections made with a stale c are scaled as
-in the BDF codes); the Jacobian is re-evaluated only when Newton converges
-badly. Newton stops at the BDF codes' tolerance, a tenth of the error test's
-scale, and remembers its contraction rate across steps, so most steps take one
-iteration. Chosen for the sparse path by measurement: on the 2-D
-Brusselator (2048 states) it needs far fewer factorisations than Rodas4.
-The step loop is Python; the interpolant, outputs and events use the compiled
-helpers shared with the dense path.
+solution on an equidistant grid and is rescaled when the step changes.
+
+Linear algebra: one sparse LU of I - c J (scipy.sparse.linalg.splu, see
+``engine.sparse``) serves many steps and Newton iterations. The factors are
+kept while (1 + c rho) / (1 + c_LU rho) stays within LU_RATIO (rho: spectral
+radius of J), and corrections made with a stale c_LU are scaled by
+2 / (1 + that ratio), as in the BDF codes. The Jacobian is re-evaluated when
+Newton fails with older factors, and every JAC_AGE steps.
+
+Newton stops at the BDF codes' tolerance, a tenth of the error test's scale
+(Hindmarsh et al., ACM TOMS 31 (2005) 363-396, sec. 2.1), with its contraction
+rate remembered across steps, so most steps take one iteration. Steps grow by
+at least GROWTH_MIN; repeated error-test failures drop the order.
+
+Chosen for the sparse path by measurement: on the 2-D Brusselator (2048
+states) it needs far fewer factorisations than Rodas4. The step loop is
+Python; vector work, the interpolant, outputs and events are compiled (the
+latter shared with the dense path).
 """
 from __future__ import annotations
 

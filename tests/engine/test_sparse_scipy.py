@@ -76,6 +76,8 @@ def test_chain_matches_scipy_radau(bruss, method, rtol):
     assert np.sqrt(np.mean(err ** 2, axis=1)).max() < 10
     assert err.max() < (10 if method == "rodas" else 30)
     if method != "rodas":
-        assert r["methods_used"] == ["bdf"]
+        # auto may take explicit steps before the problem turns stiff
+        assert r["methods_used"][-1] == "bdf"
+        assert method == "auto" or r["methods_used"] == ["bdf"]
         assert r["lu_factorizations"] < r["accepted_steps"] / 4  # factors are reused
         assert r["newton_iterations"] < 1.6 * r["accepted_steps"]
