@@ -48,8 +48,8 @@ GROWTH_FIRST = 1e4  # ... except at the first decision (the starting step is tin
 GROWTH_MIN = 1.5    # smaller increases are not taken (each may cost a factorisation)
 NEF_ORDER1 = 3      # error-test failures in a row that restart at order 1
 CRDOWN = 0.3        # decay of the remembered Newton contraction rate
-JAC_AGE = 50
-LU_RATIO = 1.5      # factors kept while c / c_LU stays in [1/LU_RATIO, LU_RATIO]
+JAC_AGE = 50        # accepted steps after which the Jacobian is re-evaluated
+LU_RATIO = 1.5      # factors kept while _stale_ratio is in [1/LU_RATIO, LU_RATIO]
 KAPPA = np.array([0.0, -0.1850, -1 / 9, -0.0823, -0.0415, 0.0])
 GAMMA = np.hstack((0.0, np.cumsum(1.0 / np.arange(1, MAX_ORDER + 1))))
 ALPHA = (1.0 - KAPPA) * GAMMA
@@ -237,12 +237,12 @@ def _newton(kernel, run, fac, t_new, c, W, tol):
     Convergence test of the BDF codes (Hindmarsh et al. 2005, sec. 2.1): stop
     when the correction times the estimated contraction rate (kept across
     steps) is below ``tol``; a correction made with a stale c_LU is scaled by
-    2 / (1 + c / c_LU). Returns (converged, iterations, non-finite f)."""
+    2 / (1 + r), r = _stale_ratio. Returns (converged, iterations, non-finite f)."""
     f, iw, p, regs = run.V[S.V_YTMP], run.iw, run.p, run.regs
     lu, perm, inv = fac.lu, fac.perm, fac.inv
     ratio = _stale_ratio(c, run.fs[S.F_H_LU], run.fs[S.F_RHO])
     s = 2.0 / (1.0 + ratio) if ratio != 1.0 else 1.0
-    # the stale c_LU alone limits the contraction to |c - c_LU| / (c + c_LU)
+    # the stale c_LU alone limits the contraction to |r - 1| / (r + 1)
     crate = max(run.bdf_crate, abs(ratio - 1.0) / (ratio + 1.0))
     old = 0.0
     for k in range(NEWTON_MAXITER):
@@ -291,10 +291,10 @@ def step(kernel, run, pattern, h):
         # c moves or Newton struggles.
         _jacobian(kernel, run, pattern, t_new, W[W_PRED])
     while True:
-        # Keep the factors while c = h / alpha stays within a factor LU_RATIO of
-        # the factored value: with the corrections scaled by 2 / (1 + c / c_LU)
-        # Newton still contracts by |c - c_LU| / (c + c_LU) <= 1/3 on stiff and
-        # non-stiff components alike, and factorisations dominate the cost.
+        # Keep the factors while the stale ratio r stays within LU_RATIO: with
+        # the corrections scaled by 2 / (1 + r) Newton still contracts by
+        # |r - 1| / (r + 1) <= 0.2 on stiff and non-stiff components alike, and
+        # factorisations dominate the cost.
         r = _stale_ratio(c, fs[S.F_H_LU], fs[S.F_RHO]) if iw[S.I_LU_VALID] else 0.0
         if not (1.0 / LU_RATIO <= r <= LU_RATIO):
             iw[S.I_NLU] += 1
