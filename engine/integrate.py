@@ -18,7 +18,7 @@ import numpy as np
 
 from engine import bdf, driver, sparse, state as S, vm
 from engine.report import aux_at_outputs, build_report
-from engine.switching import SwitchPolicy
+from engine.switching import P_IMPLICIT, SwitchPolicy
 from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
 
 METHODS = ("auto", "dopri5", "radau5", "rodas", "bdf")
@@ -131,6 +131,8 @@ class _Run:
         self.p = p if _plain(p) else np.array(p, dtype=np.float64)  # a writeable copy
         if self.pol_of is not o.policy:  # a sweep passes the same policy every time
             self.pol, self.pol_of = o.policy.as_array(), o.policy
+            if self.sparse:  # stiff phases of auto run the sparse BDF
+                self.pol[P_IMPLICIT] = BDF
         if o.nonnegative is not False and o.nonnegative is not None:
             self.V[S.V_NNMASK] = o.nonnegative
         self.t_out = t_out
@@ -150,7 +152,8 @@ class _Run:
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
-        if self.sparse:  # large sparse Jacobian: SuperLU (engine.sparse, engine.bdf)
+        if self.sparse and pinned >= 0:  # large sparse Jacobian: SuperLU (engine.sparse,
+            # engine.bdf); auto starts explicit and switches to the sparse BDF
             iw[S.I_PINNED] = iw[S.I_METHOD] = RODAS if o.method == "rodas" else BDF
         iw[S.I_MAX_STEPS] = o.max_steps
         iw[S.I_HIST_STRIDE] = 1
@@ -166,11 +169,12 @@ class _Run:
         return self
 
     def advance(self, kernel, budget):
-        if self.sparse:
-            if self.iw[S.I_METHOD] == BDF:
-                bdf.advance(kernel, self, self.pattern, budget)
-            else:
-                sparse.advance(kernel, self, self.pattern, budget)
+        method = self.iw[S.I_METHOD]
+        if self.sparse and method == BDF:
+            bdf.advance(kernel, self, self.pattern, budget)
+            return
+        if self.sparse and method == RODAS:
+            sparse.advance(kernel, self, self.pattern, budget)
             return
         driver.advance(kernel, self.p, self.regs, self.y, self.atol, self.pol, self.fs,
                        self.iw, self.V, self.cont, self.J, self.jv, self.LU, self.piv,

@@ -4,7 +4,8 @@
   stages (Hairer & Wanner II, sec. IV.2); after ``stiff_tests`` consecutive
   steps with h * rho > ``stiff_threshold`` the step is limited by stability, not by
   accuracy, and the run switches to an implicit method (Radau5 below
-  ``radau_below_rtol``, Rodas otherwise).
+  ``radau_below_rtol``, Rodas otherwise; BDF with sparse LU for large sparse
+  models).
 - Implicit -> explicit: rho is estimated from the Jacobian (power iteration);
   when the explicit stability-limited step boundary / rho is at least
   ``back_ratio`` times the implicit step for ``nonstiff_tests`` consecutive
@@ -28,7 +29,8 @@ from numba import njit
 P_BOUNDARY, P_STIFF_TESTS, P_NONSTIFF_TESTS, P_BACK_RATIO = 0, 1, 2, 3
 P_MIN_STEPS, P_RADAU_RTOL, P_RESET_AFTER, P_POWER_ITERS = 4, 5, 6, 7
 P_STIFF_THRESHOLD, P_UNSTABLE = 8, 9
-N_POLICY = 10
+P_IMPLICIT = 10  # method id forced for the stiff phases (-1: by rtol); set by the engine
+N_POLICY = 11
 
 # Reason codes in the switch log.
 REASON_STIFF = 1
@@ -60,7 +62,8 @@ class SwitchPolicy:
         return np.array([self.boundary, self.stiff_tests, self.nonstiff_tests,
                          self.back_ratio, self.min_steps, self.radau_below_rtol,
                          self.reset_after, self.power_iterations,
-                         self.stiff_threshold, self.unstable_ratio], dtype=np.float64)
+                         self.stiff_threshold, self.unstable_ratio, -1.0],
+                        dtype=np.float64)
 
 
 @njit(cache=True, nogil=True)
@@ -108,7 +111,10 @@ def log_switch(log, n_logged, t, m_from, m_to, h, rho, h_exp, reason):
 
 @njit(cache=True, nogil=True)
 def implicit_choice(pol, rtol):
-    """1 = radau5, 2 = rodas (ids of engine.tableaux)."""
+    """1 = radau5, 2 = rodas (ids of engine.tableaux); the engine sets P_IMPLICIT to
+    3 = bdf for large sparse models (sparse LU)."""
+    if pol[P_IMPLICIT] >= 0.0:
+        return int(pol[P_IMPLICIT])
     return 1 if rtol < pol[P_RADAU_RTOL] else 2
 
 

@@ -41,9 +41,14 @@ def test_brusselator_matches_scipy(bruss, method):
     err = np.max(np.abs(sol.y[-1] - ref) / (atol + rtol * np.abs(ref)))
     assert err < 100  # global error of a multistep method, in tolerance units
     if method != "rodas":
-        assert r["methods_used"] == ["bdf"]
-        assert r["lu_factorizations"] < r["accepted_steps"]  # factors are reused
+        # auto starts explicit and goes to the sparse BDF once diffusion limits the step
+        assert r["methods_used"] == (["dopri5", "bdf"] if method == "auto" else ["bdf"])
+        assert r["lu_factorizations"] < r["steps_per_method"]["bdf"]  # factors are reused
         assert r["jacobian_evaluations"] < 20
+    if method == "auto":
+        first = r["switches"][0]
+        assert (first["from"], first["to"], first["reason"]) == \
+            ("dopri5", "bdf", "stiffness_detected")
 
 
 def test_pinned_bdf_on_a_small_stiff_problem():
