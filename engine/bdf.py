@@ -30,11 +30,12 @@ import numpy as np
 from numba import njit
 
 from engine import state as S, vm
-from engine.driver import EPS, _finish
+from engine.driver import EPS, _finish, _switch
 from engine.errors_norm import err_norm_scaled
 from engine.state import (F_H, F_RTOL, I_EQUAL_STEPS, I_JAC_CURRENT, I_NONNEG,
                           I_NONNEG_REJECTS, V_NNMASK, V_YNEW)
-from engine.switching import P_BOUNDARY
+from engine.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
+from engine.tableaux import DOPRI5
 
 MAX_ORDER = 5
 NEWTON_MAXITER = 4
@@ -469,5 +470,27 @@ def advance(kernel, run, pattern, budget):
             fs[S.F_H] = h
             iw[S.I_EQUAL_STEPS] = 0
         steps += 1
-        step(kernel, run, pattern, h)
+        if step(kernel, run, pattern, h) and iw[S.I_PINNED] < 0 \
+                and iw[S.I_STATUS] == S.RUNNING and _explicit_cheaper(run, h):
+            _to_explicit(kernel, run)
+            break
     run.bdf_seen = iw[S.I_ACCEPTED] + iw[S.I_REJECTED]
+
+
+def _explicit_cheaper(run, h) -> bool:
+    """auto: the switching policy's test after an accepted step (rho from the last
+    Jacobian's spectral-radius estimate)."""
+    iw = run.iw
+    return bool(implicit_says_nonstiff(run.pol, iw[S.I_STIFF_POS:S.I_STIFF_POS + 2], h,
+                                       run.fs[S.F_RHO], iw[S.I_STEPS_IN_METHOD]))
+
+
+def _to_explicit(kernel, run):
+    """Hand the run back to the compiled Dormand-Prince loop (engine.driver)."""
+    fs, iw, V = run.fs, run.iw, run.V
+    _switch(fs, iw, run.swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
+    iw[S.I_RETURN] = 0  # the Python loop dispatches the next chunk to the driver
+    fs[S.F_H] = min(fs[S.F_H], 0.5 * fs[S.F_HEXP])
+    vm.rhs(kernel, fs[S.F_T], run.y, run.p, run.regs, V[S.V_F0])
+    iw[S.I_NFEV] += 1
+    V[S.V_K] = V[S.V_F0]  # first-same-as-last stage of the explicit method

@@ -63,3 +63,29 @@ def test_pinned_bdf_on_a_small_stiff_problem():
     assert sol.outcome == SUCCEEDED
     assert np.max(np.abs(sol.y[-1] - ref) / (atol + rtol * np.abs(ref))) < 100
     assert abs(sol.y[-1].sum() - 1.0) < 1e-10
+
+
+def test_auto_returns_to_explicit_when_a_large_model_stops_being_stiff():
+    # 300 relaxing states driven by a decaying fast rate: u_i' = -(k c + 1) u_i + 1,
+    # c' = -5 c. While k c is large the step is stability-bound (stiff); once c has
+    # decayed the problem is non-stiff and explicit steps are cheaper again (common
+    # practice for switching codes). Oracle: SciPy Radau at rtol 1e-10.
+    n_u = 300
+    states = {"c": 1.0, **{f"u{i}": 0.001 * i for i in range(n_u)}}
+    ddt = {"c": "-5*c", **{f"u{i}": "-(k*c + 1)*u%d + 1" % i for i in range(n_u)}}
+    m = K.model({"states": states, "parameters": {"k": 1e4}, "ddt": ddt})
+    assert wants_sparse(m.kernel)
+    rtol, atol = 1e-6, 1e-9
+    t_end = 12.0
+    sol = integrate(m.kernel, m.p, m.y0, (0.0, t_end), np.array([1.0, t_end]),
+                    SolverOptions(method="auto", rtol=rtol, atol=atol))
+    assert sol.outcome == SUCCEEDED
+    r = sol.report
+    moves = [(w["from"], w["to"], w["reason"]) for w in r["switches"]]
+    assert ("dopri5", "bdf", "stiffness_detected") in moves
+    assert ("bdf", "dopri5", "explicit_step_competitive") in moves
+    f, jac = K.scipy_rhs(m.kernel, m.p)
+    ref = solve_ivp(f, (0.0, t_end), m.y0, method="Radau", jac=jac, rtol=1e-10,
+                    atol=1e-13, t_eval=[1.0, t_end]).y.T
+    # global error of the multistep phase, in tolerance units (as above)
+    assert np.max(np.abs(sol.y - ref) / (atol + rtol * np.abs(ref))) < 100
