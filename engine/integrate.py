@@ -16,7 +16,7 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from engine import bdf, driver, sparse, state as S, vm
+from engine import bdf, driver, sparse, sparse_radau, state as S, vm
 from engine.report import aux_at_outputs, build_report
 from engine.switching import P_IMPLICIT, SwitchPolicy
 from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
@@ -110,6 +110,10 @@ class _Run:
         self.LUc, self.cbuf = _carve(np.complex128, (m, m), (m,))
         self.buffers = [a.base for a in (self.y, self.piv, self.LUc)]
         self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
+        if self.sparse:  # sparse Radau5 (engine.sparse_radau): work rows, complex rhs
+            self.sparse_luc = None
+            self.radau_work = np.zeros((sparse_radau.N_WORK, n))
+            self.radau_c = np.zeros(n, dtype=np.complex128)
         self.fresh = True
         self.pol = self.pol_of = None
         self.no_dir = np.zeros(ne, dtype=np.int64)   # event directions / terminal flags
@@ -153,8 +157,9 @@ class _Run:
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
         if self.sparse and pinned >= 0:  # large sparse Jacobian: SuperLU (engine.sparse,
-            # engine.bdf); auto starts explicit and switches to the sparse BDF
-            iw[S.I_PINNED] = iw[S.I_METHOD] = RODAS if o.method == "rodas" else BDF
+            # engine.sparse_radau, engine.bdf); auto starts explicit and switches to
+            # the sparse BDF
+            iw[S.I_PINNED] = iw[S.I_METHOD] = pinned if pinned in (RODAS, RADAU5) else BDF
         iw[S.I_MAX_STEPS] = o.max_steps
         iw[S.I_HIST_STRIDE] = 1
         iw[S.I_STEPS_IN_METHOD] = o.policy.min_steps  # no hysteresis for the first method
@@ -172,6 +177,9 @@ class _Run:
         method = self.iw[S.I_METHOD]
         if self.sparse and method == BDF:
             bdf.advance(kernel, self, self.pattern, budget)
+            return
+        if self.sparse and method == RADAU5:
+            sparse_radau.advance(kernel, self, self.pattern, budget)
             return
         if self.sparse and method == RODAS:
             sparse.advance(kernel, self, self.pattern, budget)

@@ -111,8 +111,5 @@ def build_report(kernel, run, o, sol, conservation, secs, started) -> dict:
         rep["stiffness_samples"] = stiffness.sample(kernel, run.p, sol.t, sol.y,
                                                     float(run.pol[P_BOUNDARY]))
         rep["warnings"] = _warnings(run, o, run.y0)
-    if run.sparse and o.method == "radau5":
-        rep["warnings"].append("large sparse system: method 'radau5' ran as bdf with "
-                               "sparse LU (the sparse path has no Radau5 yet)")
     rep["solve_seconds"] = time.perf_counter() - started
     return rep

@@ -73,6 +73,7 @@ class Pattern:
         self.pos_j = inverse[:nnz]
         self.pos_d = inverse[nnz:]
         self.data = np.zeros(len(uniq))
+        self.cdata = None  # complex values (factor_complex), made on first use
         self.perm = self.inv = None
         self.p_indices = self.p_indptr = self.p_pos_j = self.p_pos_d = None
 
@@ -111,6 +112,23 @@ class Pattern:
         B = csc_matrix((d, self.p_indices, self.p_indptr), shape=(self.n, self.n))
         B.has_sorted_indices = True
         # prefer diagonal pivots unless they are small
+        lu = splu(B, permc_spec="NATURAL", diag_pivot_thresh=0.1, relax=RELAX,
+                  panel_size=PANEL_SIZE, options={"SymmetricMode": True})
+        return Factors(lu, self.perm, self.inv)
+
+    def factor_complex(self, vals, shift):
+        """Factors of shift I - J for a complex ``shift`` (Radau IIA's complex pair,
+        engine.sparse_radau), with the ordering of the real factorisations."""
+        if self.perm is None:  # the first real factorisation computes the ordering
+            self.factor(vals, abs(shift))
+        d = self.cdata
+        if d is None:
+            d = self.cdata = np.zeros(len(self.data), dtype=np.complex128)
+        d[:] = 0.0
+        d[self.p_pos_j] = -vals
+        d[self.p_pos_d] += shift
+        B = csc_matrix((d, self.p_indices, self.p_indptr), shape=(self.n, self.n))
+        B.has_sorted_indices = True
         lu = splu(B, permc_spec="NATURAL", diag_pivot_thresh=0.1, relax=RELAX,
                   panel_size=PANEL_SIZE, options={"SymmetricMode": True})
         return Factors(lu, self.perm, self.inv)
