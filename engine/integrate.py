@@ -175,14 +175,11 @@ class _Run:
 
     def advance(self, kernel, budget):
         method = self.iw[S.I_METHOD]
-        if self.sparse and method == BDF:
-            bdf.advance(kernel, self, self.pattern, budget)
-            return
-        if self.sparse and method == RADAU5:
-            sparse_radau.advance(kernel, self, self.pattern, budget)
-            return
-        if self.sparse and method == RODAS:
-            sparse.advance(kernel, self, self.pattern, budget)
+        if self.sparse and method != DOPRI5:  # SuperLU: see sparse.single_threaded_blas
+            step = (bdf.advance if method == BDF else
+                    sparse_radau.advance if method == RADAU5 else sparse.advance)
+            with sparse.single_threaded_blas():
+                step(kernel, self, self.pattern, budget)
             return
         driver.advance(kernel, self.p, self.regs, self.y, self.atol, self.pol, self.fs,
                        self.iw, self.V, self.cont, self.J, self.jv, self.LU, self.piv,

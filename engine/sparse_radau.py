@@ -36,6 +36,7 @@ NEWTON_MAXITER = radau5.NEWTON_MAXITER
 W_D = 0      # 0..2: Newton increments of the transformed variables (natural order)
 W_B = 3      # right-hand side of the real system (the factor's order)
 N_WORK = 4
+KEEP_H_BELOW = 1.2  # keep h (and the factors) when the step factor is in [1, this)
 
 
 @njit(cache=True, nogil=True, _nrt=False)
@@ -250,7 +251,7 @@ def step(kernel, run, pattern, h):
     fac = radau5.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], nit, True)
     if iw[S.I_LAST_REJECTED] == 1:
         fac = min(fac, 1.0)
-    if not recompute_jac and 1.0 <= fac < 1.2:
+    if not recompute_jac and 1.0 <= fac < KEEP_H_BELOW:
         fac = 1.0  # keep h, so the factors stay valid
     else:
         iw[S.I_LU_VALID] = 0
