@@ -30,12 +30,12 @@ import numpy as np
 from numba import njit
 
 from engine import state as S, vm
-from engine.driver import EPS, _finish, _switch
+from engine.driver import _finish
 from engine.errors_norm import err_norm_scaled
+from engine.sparse import explicit_cheaper, next_step, to_explicit
 from engine.state import (F_H, F_RTOL, I_EQUAL_STEPS, I_JAC_CURRENT, I_NONNEG,
                           I_NONNEG_REJECTS, V_NNMASK, V_YNEW)
-from engine.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
-from engine.tableaux import DOPRI5
+from engine.switching import P_BOUNDARY
 
 MAX_ORDER = 5
 NEWTON_MAXITER = 4
@@ -419,7 +419,6 @@ def _reject(run, h, factor, kind, order):
 def advance(kernel, run, pattern, budget):
     """Python twin of engine.driver.advance for the sparse BDF path."""
     fs, iw = run.fs, run.iw
-    m = len(run.t_out)
     if getattr(run, "bdf_work", None) is None:
         run.bdf_work = np.zeros((6, run.D.shape[1]))  # rows W_Y .. W_B
         run.bdf_crate = 1.0   # Newton contraction rate, kept across steps
@@ -440,57 +439,17 @@ def advance(kernel, run, pattern, budget):
         run.bdf_nef = 0
     steps = 0
     while iw[S.I_STATUS] == S.RUNNING:
-        t = fs[S.F_T]
-        k = iw[S.I_IOUT]
-        while k < m and run.t_out[k] <= t:
-            run.y_out[k] = run.y
-            k += 1
-        iw[S.I_IOUT] = k
-        tend = fs[S.F_TEND]
-        if t >= tend:
-            iw[S.I_STATUS] = S.DONE
-            break
-        if steps >= budget:
-            break
-        if iw[S.I_ACCEPTED] + iw[S.I_REJECTED] >= iw[S.I_MAX_STEPS]:
-            iw[S.I_STATUS] = S.ST_STEP_LIMIT
+        h = next_step(run, steps, budget)
+        if h is None:
             break
         h_d = fs[S.F_H]
-        h = min(h_d, fs[S.F_HMAX])
-        if t + 1.01 * h >= tend:
-            h = tend - t
-        if h < 16 * EPS * abs(t) or not h > 0:
-            kind = iw[S.I_FAIL_KIND]
-            iw[S.I_STATUS] = (S.ST_NON_FINITE if kind == S.FAIL_NONFINITE else
-                              S.ST_NEWTON_FAILURE if kind in (S.FAIL_NEWTON, S.FAIL_SINGULAR)
-                              else S.ST_STEP_UNDERFLOW)
-            break
         if h != h_d:  # keep D scaled for the step about to be taken
             change_D(run.D, int(iw[S.I_ORDER]), h / h_d, run.bdf_work)
             fs[S.F_H] = h
             iw[S.I_EQUAL_STEPS] = 0
         steps += 1
         if step(kernel, run, pattern, h) and iw[S.I_PINNED] < 0 \
-                and iw[S.I_STATUS] == S.RUNNING and _explicit_cheaper(run, h):
-            _to_explicit(kernel, run)
+                and iw[S.I_STATUS] == S.RUNNING and explicit_cheaper(run, h):
+            to_explicit(kernel, run)
             break
     run.bdf_seen = iw[S.I_ACCEPTED] + iw[S.I_REJECTED]
-
-
-def _explicit_cheaper(run, h) -> bool:
-    """auto: the switching policy's test after an accepted step (rho from the last
-    Jacobian's spectral-radius estimate)."""
-    iw = run.iw
-    return bool(implicit_says_nonstiff(run.pol, iw[S.I_STIFF_POS:S.I_STIFF_POS + 2], h,
-                                       run.fs[S.F_RHO], iw[S.I_STEPS_IN_METHOD]))
-
-
-def _to_explicit(kernel, run):
-    """Hand the run back to the compiled Dormand-Prince loop (engine.driver)."""
-    fs, iw, V = run.fs, run.iw, run.V
-    _switch(fs, iw, run.swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
-    iw[S.I_RETURN] = 0  # the Python loop dispatches the next chunk to the driver
-    fs[S.F_H] = min(fs[S.F_H], 0.5 * fs[S.F_HEXP])
-    vm.rhs(kernel, fs[S.F_T], run.y, run.p, run.regs, V[S.V_F0])
-    iw[S.I_NFEV] += 1
-    V[S.V_K] = V[S.V_F0]  # first-same-as-last stage of the explicit method

@@ -18,10 +18,10 @@ from scipy.sparse import csc_matrix
 from scipy.sparse.linalg import splu
 
 from engine import rodas, state as S, vm
-from engine.driver import EPS, _finish
+from engine.driver import EPS, _finish, _switch
 from engine.errors_norm import err_norm
-from engine.switching import P_BOUNDARY
-from engine.tableaux import RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
+from engine.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
+from engine.tableaux import DOPRI5, RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
 
 SPARSE_MIN_N = 200
 SPARSE_MAX_DENSITY = 0.05
@@ -220,36 +220,68 @@ def _jacobian(kernel, run, pattern, t):
         V[S.V_FDT] = (V[S.V_FDT] - V[S.V_F0]) / dt
 
 
+def next_step(run, steps, budget):
+    """The loop head of every sparse method (as in engine.driver.advance): copy the
+    outputs the run has reached, end it at t_end, at the step limit or when the step
+    size underflows (the outcome named by the last failure), end the chunk after
+    ``budget`` steps. Returns the step size to attempt, or None to leave the loop."""
+    fs, iw = run.fs, run.iw
+    t = fs[S.F_T]
+    k, m = iw[S.I_IOUT], len(run.t_out)
+    while k < m and run.t_out[k] <= t:
+        run.y_out[k] = run.y
+        k += 1
+    iw[S.I_IOUT] = k
+    tend = fs[S.F_TEND]
+    if t >= tend:
+        iw[S.I_STATUS] = S.DONE
+        return None
+    if steps >= budget:
+        return None
+    if iw[S.I_ACCEPTED] + iw[S.I_REJECTED] >= iw[S.I_MAX_STEPS]:
+        iw[S.I_STATUS] = S.ST_STEP_LIMIT
+        return None
+    h = min(fs[S.F_H], fs[S.F_HMAX])
+    if t + 1.01 * h >= tend:
+        h = tend - t
+    if h < 16 * EPS * abs(t) or not h > 0:
+        kind = iw[S.I_FAIL_KIND]
+        iw[S.I_STATUS] = (S.ST_NON_FINITE if kind == S.FAIL_NONFINITE else
+                          S.ST_NEWTON_FAILURE if kind in (S.FAIL_NEWTON, S.FAIL_SINGULAR)
+                          else S.ST_STEP_UNDERFLOW)
+        return None
+    return h
+
+
+def explicit_cheaper(run, h) -> bool:
+    """auto: the switching policy's test after an accepted step (rho from the last
+    Jacobian's spectral-radius estimate)."""
+    iw = run.iw
+    return bool(implicit_says_nonstiff(run.pol, iw[S.I_STIFF_POS:S.I_STIFF_POS + 2], h,
+                                       run.fs[S.F_RHO], iw[S.I_STEPS_IN_METHOD]))
+
+
+def to_explicit(kernel, run):
+    """Hand the run back to the compiled Dormand-Prince loop (engine.driver)."""
+    fs, iw, V = run.fs, run.iw, run.V
+    _switch(fs, iw, run.swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
+    iw[S.I_RETURN] = 0  # the Python loop dispatches the next chunk to the driver
+    fs[S.F_H] = min(fs[S.F_H], 0.5 * fs[S.F_HEXP])
+    vm.rhs(kernel, fs[S.F_T], run.y, run.p, run.regs, V[S.V_F0])
+    iw[S.I_NFEV] += 1
+    V[S.V_K] = V[S.V_F0]  # first-same-as-last stage of the explicit method
+
+
 def advance(kernel, run, pattern, budget):
     """Python twin of engine.driver.advance for the sparse Rodas path."""
     fs, iw = run.fs, run.iw
-    m = len(run.t_out)
     steps = 0
     lu = run.sparse_lu
     while iw[S.I_STATUS] == S.RUNNING:
+        h = next_step(run, steps, budget)
+        if h is None:
+            break
         t = fs[S.F_T]
-        k = iw[S.I_IOUT]
-        while k < m and run.t_out[k] <= t:
-            run.y_out[k] = run.y
-            k += 1
-        iw[S.I_IOUT] = k
-        if t >= fs[S.F_TEND]:
-            iw[S.I_STATUS] = S.DONE
-            break
-        if steps >= budget:
-            break
-        if iw[S.I_ACCEPTED] + iw[S.I_REJECTED] >= iw[S.I_MAX_STEPS]:
-            iw[S.I_STATUS] = S.ST_STEP_LIMIT
-            break
-        h = min(fs[S.F_H], fs[S.F_HMAX])
-        if t + 1.01 * h >= fs[S.F_TEND]:
-            h = fs[S.F_TEND] - t
-        if h < 16 * EPS * abs(t) or not h > 0:
-            kind = iw[S.I_FAIL_KIND]
-            iw[S.I_STATUS] = (S.ST_NON_FINITE if kind == S.FAIL_NONFINITE else
-                              S.ST_NEWTON_FAILURE if kind == S.FAIL_SINGULAR else
-                              S.ST_STEP_UNDERFLOW)
-            break
         steps += 1
         if iw[S.I_JAC_CURRENT] != 1:
             _jacobian(kernel, run, pattern, t)

@@ -23,9 +23,9 @@ import numpy as np
 from numba import njit
 
 from engine import radau5, state as S, vm
-from engine.bdf import _explicit_cheaper, _to_explicit
-from engine.driver import EPS, _finish
+from engine.driver import _finish
 from engine.errors_norm import err_norm
+from engine.sparse import explicit_cheaper, next_step, to_explicit
 from engine.steps import nonneg_check
 from engine.switching import P_BOUNDARY
 from engine.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_T, RA_TI,
@@ -272,36 +272,14 @@ def step(kernel, run, pattern, h):
 
 def advance(kernel, run, pattern, budget):
     """Python twin of engine.driver.advance for the sparse Radau5 path."""
-    fs, iw = run.fs, run.iw
-    m = len(run.t_out)
+    iw = run.iw
     steps = 0
     while iw[S.I_STATUS] == S.RUNNING:
-        t = fs[S.F_T]
-        k = iw[S.I_IOUT]
-        while k < m and run.t_out[k] <= t:
-            run.y_out[k] = run.y
-            k += 1
-        iw[S.I_IOUT] = k
-        tend = fs[S.F_TEND]
-        if t >= tend:
-            iw[S.I_STATUS] = S.DONE
-            break
-        if steps >= budget:
-            break
-        if iw[S.I_ACCEPTED] + iw[S.I_REJECTED] >= iw[S.I_MAX_STEPS]:
-            iw[S.I_STATUS] = S.ST_STEP_LIMIT
-            break
-        h = min(fs[S.F_H], fs[S.F_HMAX])
-        if t + 1.01 * h >= tend:
-            h = tend - t
-        if h < 16 * EPS * abs(t) or not h > 0:
-            kind = iw[S.I_FAIL_KIND]
-            iw[S.I_STATUS] = (S.ST_NON_FINITE if kind == S.FAIL_NONFINITE else
-                              S.ST_NEWTON_FAILURE if kind in (S.FAIL_NEWTON, S.FAIL_SINGULAR)
-                              else S.ST_STEP_UNDERFLOW)
+        h = next_step(run, steps, budget)
+        if h is None:
             break
         steps += 1
         if step(kernel, run, pattern, h) and iw[S.I_PINNED] < 0 \
-                and iw[S.I_STATUS] == S.RUNNING and _explicit_cheaper(run, h):
-            _to_explicit(kernel, run)
+                and iw[S.I_STATUS] == S.RUNNING and explicit_cheaper(run, h):
+            to_explicit(kernel, run)
             break
