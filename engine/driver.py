@@ -21,7 +21,8 @@ from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ER
                           I_HIST_STRIDE, I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
                           I_MAX_STEPS, I_METHOD, I_NEV_LOG, I_NFEV, I_NJEV, I_NONNEG,
                           I_NSWITCH, I_PINNED, I_REJECTED, I_RETURN, I_STATUS,
-                          I_STEPS_DOPRI5, I_STEPS_IN_METHOD, I_STIFF_POS, I_TERMINAL, RUNNING,
+                          I_SWITCH_RETURNS, I_STEPS_DOPRI5, I_STEPS_IN_METHOD, I_STIFF_POS,
+                          I_TERMINAL, RUNNING,
                           ST_NEWTON_FAILURE, ST_NON_FINITE, ST_STEP_LIMIT, ST_STEP_UNDERFLOW,
                           V_ERR, V_F0, V_K, V_NNMASK, V_PV, V_PW, V_YEV, V_YNEW, V_YTMP)
 from engine.steps import new_jacobian, nonneg_check, try_dopri5, try_radau5, try_rodas
@@ -180,7 +181,8 @@ def _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
 
 @njit(cache=True, nogil=True, _nrt=False)
 def _switch(fs, iw, swlog, to, reason):
-    """Change method; reset the controller memory; ask Python for a return."""
+    """Change method; reset the controller memory; ask Python for a return (unless the
+    run keeps going through switches: engine.state.I_SWITCH_RETURNS)."""
     iw[I_NSWITCH] = switching.log_switch(swlog, iw[I_NSWITCH], fs[F_T], iw[I_METHOD], to,
                                          fs[F_H_LAST], fs[F_RHO], fs[F_HEXP], reason)
     iw[I_METHOD] = to
@@ -193,7 +195,7 @@ def _switch(fs, iw, swlog, to, reason):
     fs[F_RHO_J] = 0.0
     fs[F_ERR_OLD] = 1e-4 if to == DOPRI5 else 0.0
     fs[F_H_OLD] = 0.0
-    iw[I_RETURN] = 1
+    iw[I_RETURN] = iw[I_SWITCH_RETURNS]
 
 
 @njit(cache=True, nogil=True, _nrt=False)

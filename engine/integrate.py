@@ -128,7 +128,6 @@ class _Run:
             if self.D is not None:
                 self.D.fill(0.0)
         self.fresh = False
-        ne = kernel.n_events
         self.y[:] = y0
         self.y0[:] = y0
         self.atol[:] = o.atol
@@ -161,6 +160,9 @@ class _Run:
             # the sparse BDF
             iw[S.I_PINNED] = iw[S.I_METHOD] = pinned if pinned in (RODAS, RADAU5) else BDF
         iw[S.I_MAX_STEPS] = o.max_steps
+        # "full" times each method (a switch ends a chunk); the sparse path dispatches
+        # between Python and compiled loops at a switch; "counts" runs on through switches
+        iw[S.I_SWITCH_RETURNS] = int(o.diagnostics == "full" or self.sparse)
         iw[S.I_HIST_STRIDE] = 1
         iw[S.I_STEPS_IN_METHOD] = o.policy.min_steps  # no hysteresis for the first method
         iw[S.I_FIRST] = 1

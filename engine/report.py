@@ -95,7 +95,8 @@ def build_report(kernel, run, o, sol, conservation, secs, started) -> dict:
         "newton_iterations": int(iw[S.I_NEWTON_IT]),
         "newton_failures": int(iw[S.I_NEWTON_FAIL]),
         "steps_per_method": steps,
-        "seconds_per_method": {name: float(secs[k]) for k, name in enumerate(METHOD_NAMES)},
+        "seconds_per_method": ({name: float(secs[k]) for k, name in enumerate(METHOD_NAMES)}
+                               if iw[S.I_SWITCH_RETURNS] else None),  # "counts": not timed
         "switch_count": int(iw[S.I_NSWITCH]),
         "switches": _switches(run),
         "events_found": int(iw[S.I_NEV_TOTAL]),

@@ -14,12 +14,14 @@ N_FS = 19
  I_NEWTON_IT, I_NEWTON_FAIL, I_MAX_STEPS, I_IOUT, I_STIFF_POS, I_STIFF_NEG,
  I_STEPS_IN_METHOD, I_NSWITCH, I_HIST_N, I_HIST_STRIDE, I_FIRST, I_LAST_REJECTED,
  I_JAC_CURRENT, I_LU_VALID, I_CONT_METHOD, I_HAVE_CONT, I_NEV_LOG, I_NEV_TOTAL,
- I_SPARE26, I_SPARE27, I_SPARE28, I_NONNEG, I_HAS_TIME,
+ I_SWITCH_RETURNS, I_SPARE27, I_SPARE28, I_NONNEG, I_HAS_TIME,
  I_FAIL_STREAK, I_FAIL_KIND, I_TERMINAL, I_RETURN, I_NONNEG_REJECTS) = range(36)
 # accepted steps per method id (engine.tableaux): four slots from I_STEPS_DOPRI5
 I_STEPS_DOPRI5, I_STEPS_RADAU5, I_STEPS_RODAS, I_STEPS_BDF = 36, 37, 38, 39
 I_ORDER, I_EQUAL_STEPS = 40, 41  # variable-order BDF (sparse path)
 N_IW = 42
+# I_SWITCH_RETURNS: 1 = the compiled loop returns to Python after a method switch (so each
+# method's time is measured, and the sparse path can dispatch); 0 = it runs on
 
 # I_STATUS values (mapped to outcome names by engine.integrate)
 RUNNING, DONE, ST_STEP_UNDERFLOW, ST_NEWTON_FAILURE, ST_STEP_LIMIT, ST_NON_FINITE = range(6)
