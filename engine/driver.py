@@ -5,7 +5,8 @@ accepted steps (events, outputs, step history); each method module supplies
 only its step attempt, its interpolant and its step-size controller. The loop
 runs at most ``budget`` steps and then returns, so Python can report progress,
 honour cancellation and wall-time limits, and resume with the same arrays. It
-also returns right after a method switch (so time per method can be measured).
+also returns right after a method switch when ``iw[I_SWITCH_RETURNS]`` asks for it
+(so time per method can be measured, and the sparse path can take over).
 """
 import numpy as np
 from numba import njit

@@ -363,7 +363,7 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
     y_res = run.y_out[:k].copy()
     aux = np.empty((k, kernel.n_aux))
     if kernel.n_aux:
-        driver_aux(kernel, t_res, y_res, run.p, run.regs, aux)
+        aux_at_outputs(kernel, t_res, y_res, run.p, run.regs, aux)
     ne = min(int(run.iw[S.I_NEV_LOG]), len(run.ev_t))
     term = int(run.iw[S.I_TERMINAL])
     sol = Solution(
@@ -373,7 +373,3 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
         event_y=run.ev_y[:ne].copy(), terminal_event=(term - 1) if term else None)
     sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
     return sol
-
-
-def driver_aux(kernel, t, y, p, regs, out):
-    aux_at_outputs(kernel, t, y, p, regs, out)

@@ -1,4 +1,6 @@
-"""Large sparse systems: Rodas4 steps with SuperLU on the Jacobian's pattern.
+"""Large sparse systems: SuperLU on the Jacobian's pattern, the loop head and the
+return to the explicit method shared by the sparse methods (engine.bdf,
+engine.sparse_radau), and Rodas4 steps.
 
 Used when n > SPARSE_MIN_N and the Jacobian has under SPARSE_MAX_DENSITY of
 its entries non-zero (e.g. reaction-diffusion grids). The step loop runs in

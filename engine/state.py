@@ -9,7 +9,9 @@ F_RHO, F_RTOL, F_NEWTON_TOL, F_EXPL_NEEDED, F_T_BAD, F_RATE, F_HEXP = range(8, 1
 F_T0, F_H_LU, F_RHO_J, F_H_JCHECK = 15, 16, 17, 18
 N_FS = 19
 
-# iw: integer scalars and counters
+# iw: integer scalars and counters. I_SWITCH_RETURNS: 1 = the compiled loop returns to
+# Python after a method switch (each method's time is measured; the sparse path dispatches
+# there), 0 = it runs on through switches.
 (I_METHOD, I_PINNED, I_STATUS, I_ACCEPTED, I_REJECTED, I_NFEV, I_NJEV, I_NLU,
  I_NEWTON_IT, I_NEWTON_FAIL, I_MAX_STEPS, I_IOUT, I_STIFF_POS, I_STIFF_NEG,
  I_STEPS_IN_METHOD, I_NSWITCH, I_HIST_N, I_HIST_STRIDE, I_FIRST, I_LAST_REJECTED,
@@ -20,8 +22,6 @@ N_FS = 19
 I_STEPS_DOPRI5, I_STEPS_RADAU5, I_STEPS_RODAS, I_STEPS_BDF = 36, 37, 38, 39
 I_ORDER, I_EQUAL_STEPS = 40, 41  # variable-order BDF (sparse path)
 N_IW = 42
-# I_SWITCH_RETURNS: 1 = the compiled loop returns to Python after a method switch (so each
-# method's time is measured, and the sparse path can dispatch); 0 = it runs on
 
 # I_STATUS values (mapped to outcome names by engine.integrate)
 RUNNING, DONE, ST_STEP_UNDERFLOW, ST_NEWTON_FAILURE, ST_STEP_LIMIT, ST_NON_FINITE = range(6)
