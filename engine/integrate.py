@@ -171,7 +171,7 @@ class _Run:
             else int(self.V[S.V_NNMASK].any())
         if self.code_seen is not kernel.rhs_code:  # same program as the last run: known
             self.code_seen = kernel.rhs_code
-            self.has_time = int(bool((kernel.rhs_code[:, 0] == vm.TIME).any()))
+            self.has_time = int(vm.reads_time(kernel.rhs_code))
         iw[S.I_HAS_TIME] = self.has_time
         return self
 

@@ -44,6 +44,9 @@ MOVE = 39    # dst = a (pins a value in a register read after the program)
 MULC, MULP = 40, 41          # dst = a * consts[b] / a * p[b]
 MULADDC, MULADDP = 42, 43    # dst = a * consts[b] + c / a * p[b] + c
 OUTC = 44                    # out[dst] = consts[a]
+# First row of a linked program (engine.program.link): (PROLOGUE, ny, np, nc, t) copies
+# y[:ny], p[:np], t (if t != 0) and consts[:nc] into registers 0, 1, ... in that order.
+PROLOGUE = 45
 
 N_FIELDS = 5
 
@@ -86,7 +89,21 @@ class Kernel(NamedTuple):
 @njit(cache=True, nogil=True, _nrt=False, error_model="numpy")
 def run(code, consts, t, y, p, regs, out):
     """Execute one program: read ``t``, ``y``, ``p``; write ``out``."""
-    for k in range(code.shape[0]):
+    k0 = 0
+    if code.shape[0] > 0 and code[0, 0] == PROLOGUE:
+        ny, npar, nc = code[0, 1], code[0, 2], code[0, 3]
+        for i in range(ny):
+            regs[i] = y[i]
+        for i in range(npar):
+            regs[ny + i] = p[i]
+        o = ny + npar
+        if code[0, 4] != 0:
+            regs[o] = t
+            o += 1
+        for i in range(nc):
+            regs[o + i] = consts[i]
+        k0 = 1
+    for k in range(k0, code.shape[0]):
         op = code[k, 0]
         d = code[k, 1]
         a = code[k, 2]
@@ -299,6 +316,20 @@ def aux(kernel, t, y, p, regs, out):
 def events(kernel, t, y, p, regs, out):
     """Event function values into ``out`` (length n_events)."""
     run(kernel.event_code, kernel.consts, t, y, p, regs, out)
+
+
+def prologue_registers(code: np.ndarray) -> int:
+    """Registers a linked program's prologue fills (0 for a program without one)."""
+    if code.shape[0] and code[0, 0] == PROLOGUE:
+        return int(code[0, 1] + code[0, 2] + code[0, 3] + (code[0, 4] != 0))
+    return 0
+
+
+def reads_time(code: np.ndarray) -> bool:
+    """Whether a program reads t (a TIME load, or the prologue's t slot)."""
+    if code.shape[0] and code[0, 0] == PROLOGUE and code[0, 4]:
+        return True
+    return bool((code[:, 0] == TIME).any())
 
 
 def empty_code() -> np.ndarray:

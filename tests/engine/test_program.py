@@ -59,7 +59,7 @@ def test_registers_are_reused_after_last_use():
     _, roots = build([text], limits)
     out, code, n_regs, _ = run(roots, 0.0, [0.5, 0.25, 0.1], [0.0, 0.0])
     assert out[0] == pytest.approx(evaluate(roots, 0.0, [0.5, 0.25, 0.1], [0.0, 0.0])[0], rel=1e-14)
-    assert n_regs <= 8
+    assert n_regs - vm.prologue_registers(code) <= 8  # working registers
     assert len(code) > 1000
 
 
@@ -87,4 +87,24 @@ def test_single_use_loads_are_folded_into_their_reader():
     assert list(out) == evaluate(roots, 0.0, [1.0, 2.0, 3.0], [0.5, 0.0])
     ops = code[:, 0].tolist()
     assert vm.OUTC in ops and ops.count(vm.CONST) == 0
-    assert ops.count(vm.PARAM) == 1  # a is read twice: loaded once, not folded
+    # a is read twice: not folded, copied once by the prologue (y[:3], p[:1], no consts)
+    assert ops.count(vm.PARAM) == 0 and tuple(code[0]) == (vm.PROLOGUE, 3, 1, 0, 0)
+
+
+def test_states_parameters_and_time_are_read_without_load_instructions():
+    # the prologue copies y, p, t and the shared constants into registers in one pass;
+    # the instructions then read them directly
+    _, roots = build(["x*x + x*a + a/x + t*x + 2.5*(x - 2.5)", "y - 2.5"])
+    out, code, n_regs, pool = run(roots, 0.75, [1.5, 2.0, 3.0], [0.5, 0.0])
+    assert list(out) == evaluate(roots, 0.75, [1.5, 2.0, 3.0], [0.5, 0.0])
+    ops = code[:, 0].tolist()
+    assert ops[0] == vm.PROLOGUE and ops.count(vm.PROLOGUE) == 1
+    assert not {vm.STATE, vm.PARAM, vm.CONST, vm.TIME} & set(ops)
+    assert vm.reads_time(code) and vm.prologue_registers(code) == 2 + 1 + 1 + len(pool.array())
+
+
+def test_a_program_without_loads_has_no_prologue():
+    _, roots = build(["7.0", "2.5"])
+    out, code, _, _ = run(roots, 0.0, [1.0, 2.0, 3.0], [0.5, 0.0])
+    assert list(out) == [7.0, 2.5]
+    assert vm.PROLOGUE not in code[:, 0].tolist() and not vm.reads_time(code)
