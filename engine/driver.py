@@ -119,6 +119,11 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
     t_old = fs[F_T]
     t_new = t_old + h
     ynew = V[V_YNEW]
+    m = t_out.shape[0]
+    if method == DOPRI5 and (gv.shape[1] > 0 or (iw[I_IOUT] < m and t_out[iw[I_IOUT]] < t_new)):
+        # Dormand-Prince's interpolant (five rows from the stages) only for steps that
+        # hold an output time or may hold an event: most explicit steps need none
+        dopri5.prepare_dense(y, ynew, h, V[V_K:V_K + 7], cont)
     if iw[I_NONNEG] and nonneg_check(ynew, y, atol, fs[F_RTOL], V[V_NNMASK]) == 1:
         for i in range(y.shape[0]):
             if ynew[i] < 0.0 and V[V_NNMASK, i] != 0.0:
@@ -128,7 +133,6 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
         t_stop, k_stop = _scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir,
                                ev_term, ev_t, ev_i, ev_y, iw[I_NEV_LOG:I_NEV_LOG + 2],
                                V[V_YEV])
-    m = t_out.shape[0]
     k = iw[I_IOUT]
     while k < m and t_out[k] <= t_stop:
         if t_out[k] == t_new:

@@ -91,7 +91,10 @@ def newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc, Z, W, F, ytmp, cbuf,
         dw = math.sqrt(dsum / (3 * max(n, 1)))
         if dw_old > 0.0:
             rate = dw / dw_old
-            if rate >= 1.0 or rate ** (NEWTON_MAXITER - k) / (1.0 - rate) * dw > tol:
+            rk = 1.0  # rate ** (NEWTON_MAXITER - k), by multiplication
+            for _ in range(NEWTON_MAXITER - k):
+                rk *= rate
+            if rate >= 1.0 or rk / (1.0 - rate) * dw > tol:
                 return False, k + 1, rate, nfev
         for i in range(n):
             W[0, i] += ytmp[i]
@@ -158,8 +161,8 @@ def step_factor(h, h_old, err, err_old, n_iter, accepted):
     if err_old <= 0.0 or h_old <= 0.0 or err == 0.0:
         mult = 1.0
     else:
-        mult = h / h_old * (err_old / err) ** 0.25
-    fac = min(1.0, mult) * max(err, 1e-10) ** -0.25
+        mult = h / h_old * math.sqrt(math.sqrt(err_old / err))  # (err_old/err)^(1/4)
+    fac = min(1.0, mult) / math.sqrt(math.sqrt(max(err, 1e-10)))
     if accepted:
         return min(10.0, safety * fac)
     return max(0.2, safety * fac)

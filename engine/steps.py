@@ -80,8 +80,7 @@ def try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
     rho = max(rho, fs[F_RHO_J])
     fs[F_RHO] = rho
     fs[F_HEXP] = pol[P_BOUNDARY] / rho if rho > 0.0 else np.inf
-    dopri5.prepare_dense(y, ynew, h, K, cont)
-    fs[F_H] = h * fac
+    fs[F_H] = h * fac  # the interpolant is built only when needed (driver._finish)
     return True
 
 

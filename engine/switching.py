@@ -136,7 +136,7 @@ def spectral_radius(J, v, w, iters):
     s = 1.0 / np.sqrt(nv)
     for i in range(n):
         v[i] *= s
-    logsum = 0.0
+    prod = 1.0  # product of the norms (one root at the end instead of a log each)
     k = 0
     for _ in range(iters):
         nw = 0.0
@@ -149,8 +149,10 @@ def spectral_radius(J, v, w, iters):
         if not (nw > 0.0) or not np.isfinite(nw):
             break
         nw = np.sqrt(nw)
-        logsum += np.log(nw)
+        if not (1e-150 < prod * nw < 1e150):  # keep the product in range
+            break
+        prod *= nw
         k += 1
         for i in range(n):
             v[i] = w[i] / nw
-    return np.exp(logsum / k) if k > 0 else 0.0
+    return prod ** (1.0 / k) if k > 0 else 0.0
