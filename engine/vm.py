@@ -274,7 +274,10 @@ def _pow(x, e):
 @njit(cache=True, nogil=True, _nrt=False)
 def rhs(kernel, t, y, p, regs, out):
     """dy/dt into ``out`` (length n): the program's terms, then the mass-action terms."""
-    rhs_parts(kernel.rhs_code, kernel.consts, kernel.ma, t, y, p, regs, out)
+    if kernel.ma[0] == 0:  # no reactions: one call level less (the program alone)
+        run(kernel.rhs_code, kernel.consts, t, y, p, regs, out)
+    else:
+        rhs_parts(kernel.rhs_code, kernel.consts, kernel.ma, t, y, p, regs, out)
 
 
 @njit(cache=True, nogil=True, _nrt=False)
