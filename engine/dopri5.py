@@ -58,7 +58,7 @@ def attempt(kernel, p, regs, t, y, h, K, ynew, ysti, err_vec, atol, rtol):
     return err, rho
 
 
-@njit(cache=True, nogil=True, _nrt=False)
+@njit(cache=True, nogil=True, _nrt=False, inline="always")
 def prepare_dense(y, ynew, h, K, cont):
     """Fill cont[0:5] with the continuous-extension coefficients of the step."""
     n = y.shape[0]

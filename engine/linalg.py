@@ -42,7 +42,7 @@ def lu_factor(a, piv):
     return True
 
 
-@njit(cache=True, nogil=True, _nrt=False)
+@njit(cache=True, nogil=True, _nrt=False, inline="always")
 def lu_solve(a, piv, b):
     """Solve in place: ``b`` <- A^-1 b using the factors from :func:`lu_factor`."""
     n = a.shape[0]

@@ -32,7 +32,7 @@ def factor(J, h, LU, piv, LUc, pivc):
     return ok and clu_factor(LUc, pivc)
 
 
-@njit(cache=True, nogil=True, _nrt=False)
+@njit(cache=True, nogil=True, _nrt=False, inline="always")
 def predict(cont, have_cont, t_old, h_old, t, h, y, Z):
     """Starting guess for the stage increments Z from the last interpolant."""
     n = y.shape[0]
@@ -136,7 +136,7 @@ def error(kernel, p, regs, t, y, f0, h, LU, piv, Z, ynew, err_vec, ytmp, atol, r
     return err, nfev
 
 
-@njit(cache=True, nogil=True, _nrt=False)
+@njit(cache=True, nogil=True, _nrt=False, inline="always")
 def prepare_dense(y, Z, cont):
     """cont[0] = y_old, cont[1:4] = Z^T P (collocation polynomial)."""
     n = y.shape[0]
