@@ -71,11 +71,25 @@ class Solution:
     message: str                   # what happened and what to do
     t_reached: float
     y_reached: np.ndarray
-    report: dict = field(default_factory=dict)  # JSON-safe diagnostics
     event_t: np.ndarray = field(default_factory=lambda: np.zeros(0))
     event_index: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_y: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
     terminal_event: Optional[int] = None   # index of the event that stopped the run
+    # JSON-safe diagnostics (sol.report); with diagnostics="counts" built on first read
+    # from a snapshot of the run's counters: sweep members that never read it skip it
+    _report: Optional[dict] = field(default=None, repr=False)
+    _report_later: Optional[Callable[[], dict]] = field(default=None, repr=False)
+
+    @property
+    def report(self) -> dict:
+        if self._report is None:
+            self._report = self._report_later() if self._report_later else {}
+            self._report_later = None
+        return self._report
+
+    @report.setter
+    def report(self, value: dict) -> None:
+        self._report, self._report_later = value, None
 
 
 # monitor(fraction_done) -> True to stop (cancellation); called at most every 0.5 s.
@@ -120,6 +134,7 @@ class _Run:
         self.no_term = np.zeros(ne, dtype=np.bool_)  # when the options give none
         self.code_seen = None
         self.has_time = 0
+        self.key = None  # pool key (engine.integrate._pool_key)
 
     def reset(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
         if not self.fresh:
@@ -202,13 +217,15 @@ def _pool_key(kernel, t_out, o):
 
 
 def _take_run(kernel, p, y0, t0, t1, t_out, o) -> _Run:
-    free = _POOL.get(_pool_key(kernel, t_out, o))
+    key = _pool_key(kernel, t_out, o)
+    free = _POOL.get(key)
     try:
         run = free.pop() if free else None
     except IndexError:  # another thread took the last one
         run = None
     if run is None:
         run = _Run(kernel, t_out, o)
+        run.key = key
     return run.reset(kernel, p, y0, t0, t1, t_out, o)
 
 
@@ -216,7 +233,7 @@ def _give_back(kernel, run, o):
     """Keep a finished dense-path run for the next call with the same shapes."""
     if run.sparse or run.buffers[0].size > POOL_MAX_VALUES:
         return
-    key = _pool_key(kernel, run.t_out, o)
+    key = run.key
     free = _POOL.get(key)
     if free is None:
         if len(_POOL) >= POOL_KEYS:
@@ -369,7 +386,29 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
     sol = Solution(
         t=t_res, y=y_res, aux=aux, outcome=outcome, message=_message(outcome, run, o, kernel),
         t_reached=float(run.fs[S.F_T]), y_reached=run.y.copy(),
-        event_t=run.ev_t[:ne].copy(), event_index=run.ev_i[:ne].copy(),
-        event_y=run.ev_y[:ne].copy(), terminal_event=(term - 1) if term else None)
-    sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
+        terminal_event=(term - 1) if term else None)
+    if len(run.ev_t):  # a model with events (else the empty defaults)
+        sol.event_t, sol.event_index = run.ev_t[:ne].copy(), run.ev_i[:ne].copy()
+        sol.event_y = run.ev_y[:ne].copy()
+    if o.diagnostics == "full":
+        sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
+    else:  # "counts": counters and switch log only; the run's arrays go back to the pool
+        snap = _Counters(run, conservation is not None)
+        seconds = time.perf_counter() - started
+        sol._report_later = lambda: build_report(kernel, snap, o, sol, conservation, secs,
+                                                 started, seconds)
     return sol
+
+
+class _Counters:
+    """What a "counts" report reads from a run, copied before the run is reused."""
+
+    def __init__(self, run, keep_y0):
+        self.iw, self.fs = run.iw.copy(), run.fs.copy()
+        k = min(int(self.iw[S.I_NSWITCH]), len(run.swlog))
+        self.swlog = run.swlog[:k].copy() if k else _NO_SWITCHES
+        self.y0 = run.y0.copy() if keep_y0 else None  # for the conservation drift
+        self.sparse = run.sparse
+
+
+_NO_SWITCHES = np.zeros((0, 7))

@@ -160,3 +160,27 @@ def test_repeated_calls_give_identical_results(method):
                 "jacobian_evaluations", "lu_factorizations", "switch_count"):
         assert first.report[key] == again.report[key]
     assert first.y is not again.y and not np.shares_memory(first.y, again.y)
+
+
+def test_counts_report_matches_the_full_report_and_survives_later_runs():
+    # diagnostics="counts" builds the report on first read, from a copy of the run's
+    # counters taken at the end of the solve: later runs (which reuse the same arrays)
+    # must not change it, and its counts are those of a "full" run
+    model = K.model(K.ROBERTSON)
+    t_out = np.array([0.0, 1.0, 10.0, 40.0])
+
+    def once(diagnostics, rtol=1e-6):
+        return integrate(model.kernel, model.p, model.y0, (0.0, 40.0), t_out,
+                         SolverOptions(rtol=rtol, atol=1e-10, diagnostics=diagnostics),
+                         conservation=np.ones((1, 3)))
+
+    lean = once("counts")
+    once("counts", rtol=1e-3)  # reuses the pooled run of the same shapes
+    full = once("full")
+    for key in ("accepted_steps", "rejected_steps", "rhs_evaluations", "jacobian_evaluations",
+                "lu_factorizations", "newton_iterations", "steps_per_method", "switch_count",
+                "switches", "explicit_steps_needed", "t_reached", "conservation_drift"):
+        assert lean.report[key] == full.report[key], key
+    assert lean.report["switch_count"] >= 1 and lean.report["seconds_per_method"] is None
+    assert lean.report is lean.report  # built once
+    assert 0.0 < lean.report["solve_seconds"] < 1.0
