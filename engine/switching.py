@@ -122,7 +122,8 @@ def implicit_choice(pol, rtol):
 def spectral_radius(J, v, w, iters):
     """Power-iteration estimate of the spectral radius of J, warm-started
     from ``v`` (updated in place): (||J^k v|| / ||v||)^(1/k), which, unlike a
-    single ratio, is not inflated by non-normal transients."""
+    single ratio, is not inflated by non-normal transients. Entries up to ~1e150 (the
+    squared norms must stay finite); 0.0 when no estimate is possible."""
     n = J.shape[0]
     nv = 0.0
     for i in range(n):
@@ -136,7 +137,8 @@ def spectral_radius(J, v, w, iters):
     s = 1.0 / np.sqrt(nv)
     for i in range(n):
         v[i] *= s
-    prod = 1.0  # product of the norms (one root at the end instead of a log each)
+    prod = 1.0  # product of the norms (one root at the end instead of a log each);
+    logsum = 0.0  # its logarithm is taken only if it leaves a safe range
     k = 0
     for _ in range(iters):
         nw = 0.0
@@ -149,10 +151,13 @@ def spectral_radius(J, v, w, iters):
         if not (nw > 0.0) or not np.isfinite(nw):
             break
         nw = np.sqrt(nw)
-        if not (1e-150 < prod * nw < 1e150):  # keep the product in range
-            break
         prod *= nw
+        if not (1e-100 < prod < 1e100):
+            logsum += np.log(prod)
+            prod = 1.0
         k += 1
         for i in range(n):
             v[i] = w[i] / nw
-    return prod ** (1.0 / k) if k > 0 else 0.0
+    if k == 0:
+        return 0.0
+    return prod ** (1.0 / k) if logsum == 0.0 else np.exp((logsum + np.log(prod)) / k)
