@@ -393,18 +393,22 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
     if o.diagnostics == "full":
         sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
     else:  # "counts": counters and switch log only; the run's arrays go back to the pool
-        snap = _Counters(run, conservation is not None)
+        snap = _Counters(run, conservation is not None, sol.y)
         seconds = time.perf_counter() - started
-        sol._report_later = lambda: build_report(kernel, snap, o, sol, conservation, secs,
+        # the closure holds the snapshot, not the Solution (no reference cycle: a sweep's
+        # solutions are freed at once, not by the cyclic garbage collector)
+        sol._report_later = lambda: build_report(kernel, snap, o, snap, conservation, secs,
                                                  started, seconds)
     return sol
 
 
 class _Counters:
-    """What a "counts" report reads from a run, copied before the run is reused."""
+    """What a "counts" report reads from a run, copied before the run is reused (it also
+    stands in for the Solution: ``y`` for the conservation drift)."""
 
-    def __init__(self, run, keep_y0):
+    def __init__(self, run, keep_y0, y):
         self.iw, self.fs = run.iw.copy(), run.fs.copy()
+        self.y = y if keep_y0 else None
         k = min(int(self.iw[S.I_NSWITCH]), len(run.swlog))
         self.swlog = run.swlog[:k].copy() if k else _NO_SWITCHES
         self.y0 = run.y0.copy() if keep_y0 else None  # for the conservation drift

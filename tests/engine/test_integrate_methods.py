@@ -184,3 +184,19 @@ def test_counts_report_matches_the_full_report_and_survives_later_runs():
     assert lean.report["switch_count"] >= 1 and lean.report["seconds_per_method"] is None
     assert lean.report is lean.report  # built once
     assert 0.0 < lean.report["solve_seconds"] < 1.0
+
+
+def test_a_counts_solution_is_freed_without_the_cycle_collector():
+    # sweeps create many solutions: each must be freed by reference counting alone
+    import gc
+    import weakref
+    model = K.model(K.ROBERTSON)
+    sol = integrate(model.kernel, model.p, model.y0, (0.0, 40.0), np.array([40.0]),
+                    SolverOptions(diagnostics="counts"), conservation=np.ones((1, 3)))
+    ref = weakref.ref(sol)
+    gc.disable()
+    try:
+        del sol
+        assert ref() is None
+    finally:
+        gc.enable()
