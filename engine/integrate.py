@@ -393,7 +393,7 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
     if o.diagnostics == "full":
         sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
     else:  # "counts": counters and switch log only; the run's arrays go back to the pool
-        snap = _Counters(run, conservation is not None, sol.y)
+        snap = _Counters(run, sol.y if conservation is not None else None)
         seconds = time.perf_counter() - started
         # the closure holds the snapshot, not the Solution (no reference cycle: a sweep's
         # solutions are freed at once, not by the cyclic garbage collector)
@@ -403,16 +403,18 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
 
 
 class _Counters:
-    """What a "counts" report reads from a run, copied before the run is reused (it also
-    stands in for the Solution: ``y`` for the conservation drift)."""
+    """What a "counts" report reads from a run, copied before the run is reused. It also
+    stands in for the Solution, whose states ``y`` the conservation drift needs (given
+    only when a drift is asked for)."""
 
-    def __init__(self, run, keep_y0, y):
+    def __init__(self, run, y_for_drift):
         self.iw, self.fs = run.iw.copy(), run.fs.copy()
-        self.y = y if keep_y0 else None
         k = min(int(self.iw[S.I_NSWITCH]), len(run.swlog))
         self.swlog = run.swlog[:k].copy() if k else _NO_SWITCHES
-        self.y0 = run.y0.copy() if keep_y0 else None  # for the conservation drift
+        self.y = y_for_drift
+        self.y0 = None if y_for_drift is None else run.y0.copy()
         self.sparse = run.sparse
 
 
 _NO_SWITCHES = np.zeros((0, 7))
+_NO_SWITCHES.flags.writeable = False
