@@ -8,7 +8,7 @@ import pytest
 from hypothesis import assume, given, settings, strategies as st
 
 from engine.derivative import gradients, jacobian
-from engine.expr import Builder, evaluate, postorder
+from engine.expr import Builder, ExprError, evaluate, postorder
 from engine.parser import parse
 
 NAMES = ("x", "y", "z")
@@ -134,7 +134,13 @@ def _expr(depth):
 @settings(max_examples=150, deadline=None)
 @given(_expr(4))
 def test_generated_expressions_match_complex_step(text):
-    b, (root,) = setup([text])
+    try:
+        b, (root,) = setup([text])
+    except ExprError as err:
+        # nested cubes of constants leave double range when folded at parse time; the
+        # parser rejects those (a specified error): no derivative to check there
+        assume("finite float64" not in err.message)
+        raise
     x, p = [0.3, -0.2, 0.9], [1.1]
     (grad,) = gradients(b, [root])
     for j in range(3):
