@@ -19,6 +19,14 @@ from engine.cache import configure  # noqa: E402
 
 configure(ROOT / "var" / "numba-cache")  # the folder `stifflane warm` filled, before numba loads
 
+from hypothesis import settings  # noqa: E402
+
+# Property tests draw the same examples on every run (`make test`, CI): a run fails only for
+# a change in the code. `HYPOTHESIS_PROFILE=explore make test` draws new examples each time.
+settings.register_profile("repeatable", derandomize=True)
+settings.register_profile("explore", derandomize=False)
+settings.load_profile(os.environ.get("HYPOTHESIS_PROFILE", "repeatable"))
+
 from cli.redis_server import redis_binary  # noqa: E402
 from jobs.settings import Settings  # noqa: E402
 from jobs.store import JobStore  # noqa: E402
