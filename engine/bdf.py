@@ -32,10 +32,10 @@ from numba import njit
 from engine import state as S, vm
 from engine.driver import _finish
 from engine.errors_norm import err_norm_scaled
-from engine.sparse import explicit_cheaper, next_step, to_explicit
+from engine.sparse import explicit_cheaper, new_jacobian, next_step, to_explicit
+from engine.steps import reject
 from engine.state import (F_H, F_RTOL, I_EQUAL_STEPS, I_JAC_CURRENT, I_NONNEG,
                           I_NONNEG_REJECTS, V_NNMASK, V_YNEW)
-from engine.switching import P_BOUNDARY
 
 MAX_ORDER = 5
 NEWTON_MAXITER = 4
@@ -266,13 +266,8 @@ def _newton(kernel, run, fac, t_new, c, W, tol):
 
 
 def _jacobian(kernel, run, pattern, t, y):
-    vm.jac_values(kernel, t, y, run.p, run.regs, run.jv)
-    run.iw[S.I_NJEV] += 1
-    run.iw[S.I_JAC_CURRENT] = 1
+    new_jacobian(kernel, run, pattern, t, y)
     run.bdf_jac_step = run.iw[S.I_ACCEPTED]
-    rho = pattern.spectral_radius(run.jv, run.V[S.V_PV])
-    run.fs[S.F_RHO] = rho
-    run.fs[S.F_HEXP] = run.pol[P_BOUNDARY] / rho if rho > 0 else np.inf
 
 
 def step(kernel, run, pattern, h):
@@ -402,13 +397,8 @@ def _reject_error(run, h, order, err, safety):
 
 
 def _reject(run, h, factor, kind, order):
-    iw, fs = run.iw, run.fs
-    iw[S.I_REJECTED] += 1
-    iw[S.I_LAST_REJECTED] = 1
-    iw[S.I_FAIL_KIND] = kind
-    if kind == S.FAIL_NONFINITE:
-        fs[S.F_T_BAD] = fs[S.F_T] + h
-    fs[S.F_H] = h * factor
+    iw = run.iw
+    reject(run.fs, iw, h, factor, kind)
     change_D(run.D, order, factor, run.bdf_work)
     iw[S.I_EQUAL_STEPS] = 0
     if kind != S.FAIL_ERROR:  # after an error-test failure the factors still serve

@@ -47,6 +47,16 @@ def predict(cont, have_cont, t_old, h_old, t, h, y, Z):
 
 
 @njit(cache=True, nogil=True, _nrt=False)
+def too_slow(rate, k, dw, tol):
+    """After iteration k with contraction ``rate`` and increment norm ``dw``: True when
+    Newton is not expected to reach ``tol`` within NEWTON_MAXITER iterations."""
+    rk = 1.0  # rate ** (NEWTON_MAXITER - k), by multiplication
+    for _ in range(NEWTON_MAXITER - k):
+        rk *= rate
+    return rate >= 1.0 or rk / (1.0 - rate) * dw > tol
+
+
+@njit(cache=True, nogil=True, _nrt=False)
 def newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc, Z, W, F, ytmp, cbuf,
            scale, tol):
     """Simplified Newton on the collocation system.
@@ -91,10 +101,7 @@ def newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc, Z, W, F, ytmp, cbuf,
         dw = math.sqrt(dsum / (3 * max(n, 1)))
         if dw_old > 0.0:
             rate = dw / dw_old
-            rk = 1.0  # rate ** (NEWTON_MAXITER - k), by multiplication
-            for _ in range(NEWTON_MAXITER - k):
-                rk *= rate
-            if rate >= 1.0 or rk / (1.0 - rate) * dw > tol:
+            if too_slow(rate, k, dw, tol):
                 return False, k + 1, rate, nfev
         for i in range(n):
             W[0, i] += ytmp[i]

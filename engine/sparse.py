@@ -22,6 +22,7 @@ from scipy.sparse.linalg import splu
 from engine import rodas, state as S, vm
 from engine.driver import EPS, _finish, _switch
 from engine.errors_norm import err_norm
+from engine.steps import reject
 from engine.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
 from engine.tableaux import DOPRI5, RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
 
@@ -206,15 +207,21 @@ def _attempt(kernel, run, lu, t, h):
     return err_norm(K[5], y, ynew, run.atol, run.fs[S.F_RTOL]), nfev
 
 
+def new_jacobian(kernel, run, pattern, t, y):
+    """Jacobian values at (t, y) on the pattern, counted, with the spectral radius and
+    the explicit step it allows (engine.steps.new_jacobian for the sparse methods)."""
+    vm.jac_values(kernel, t, y, run.p, run.regs, run.jv)
+    run.iw[S.I_NJEV] += 1
+    run.iw[S.I_JAC_CURRENT] = 1
+    rho = pattern.spectral_radius(run.jv, run.V[S.V_PV])
+    run.fs[S.F_RHO] = rho
+    run.fs[S.F_HEXP] = run.pol[P_BOUNDARY] / rho if rho > 0 else np.inf
+
+
 def _jacobian(kernel, run, pattern, t):
     iw, fs, V = run.iw, run.fs, run.V
-    vm.jac_values(kernel, t, run.y, run.p, run.regs, run.jv)
-    iw[S.I_NJEV] += 1
-    iw[S.I_JAC_CURRENT] = 1
+    new_jacobian(kernel, run, pattern, t, run.y)
     iw[S.I_LU_VALID] = 0
-    rho = pattern.spectral_radius(run.jv, V[S.V_PV])
-    fs[S.F_RHO] = rho
-    fs[S.F_HEXP] = run.pol[P_BOUNDARY] / rho if rho > 0 else np.inf
     if iw[S.I_HAS_TIME]:
         dt = np.sqrt(EPS) * max(abs(t), fs[S.F_H])
         vm.rhs(kernel, t + dt, run.y, run.p, run.regs, V[S.V_FDT])
@@ -303,12 +310,7 @@ def advance(kernel, run, pattern, budget):
 
 
 def _reject(run, h, fac, kind):
-    run.iw[S.I_REJECTED] += 1
-    run.iw[S.I_LAST_REJECTED] = 1
-    run.iw[S.I_FAIL_KIND] = kind
-    if kind == S.FAIL_NONFINITE:
-        run.fs[S.F_T_BAD] = run.fs[S.F_T] + h
-    run.fs[S.F_H] = h * fac
+    reject(run.fs, run.iw, h, fac, kind)
 
 
 def _decide(kernel, run, err, h):

@@ -25,9 +25,8 @@ from numba import njit
 from engine import radau5, state as S, vm
 from engine.driver import _finish
 from engine.errors_norm import err_norm
-from engine.sparse import explicit_cheaper, next_step, to_explicit
-from engine.steps import nonneg_check
-from engine.switching import P_BOUNDARY
+from engine.sparse import explicit_cheaper, new_jacobian, next_step, to_explicit
+from engine.steps import nonneg_check, reject
 from engine.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_T, RA_TI,
                              RADAU5)
 
@@ -135,14 +134,8 @@ def _scale(y, atol, rtol, scale):
 
 
 def _jacobian(kernel, run, pattern, t, y):
-    iw, fs = run.iw, run.fs
-    vm.jac_values(kernel, t, y, run.p, run.regs, run.jv)
-    iw[S.I_NJEV] += 1
-    iw[S.I_JAC_CURRENT] = 1
-    iw[S.I_LU_VALID] = 0
-    rho = pattern.spectral_radius(run.jv, run.V[S.V_PV])
-    fs[S.F_RHO] = rho
-    fs[S.F_HEXP] = run.pol[P_BOUNDARY] / rho if rho > 0 else np.inf
+    new_jacobian(kernel, run, pattern, t, y)
+    run.iw[S.I_LU_VALID] = 0
 
 
 def _newton(kernel, run, t, h, scale, tol):
@@ -163,7 +156,7 @@ def _newton(kernel, run, t, h, scale, tol):
         dw = _increment(lr.lu.solve(br), lc.lu.solve(bc), lr.perm, lc.perm, scale, D)
         if dw_old > 0.0:
             rate = dw / dw_old
-            if rate >= 1.0 or rate ** (NEWTON_MAXITER - k) / (1.0 - rate) * dw > tol:
+            if radau5.too_slow(rate, k, dw, tol):
                 return False, k + 1, rate
         _apply(D, W, Z)
         if dw == 0.0 or (dw_old > 0.0 and rate / (1.0 - rate) * dw < tol):
@@ -191,13 +184,7 @@ def _error(kernel, run, t, h, refine):
 
 
 def _reject(run, h, fac, kind):
-    iw = run.iw
-    iw[S.I_REJECTED] += 1
-    iw[S.I_LAST_REJECTED] = 1
-    iw[S.I_FAIL_KIND] = kind
-    if kind == S.FAIL_NONFINITE:
-        run.fs[S.F_T_BAD] = run.fs[S.F_T] + h
-    run.fs[S.F_H] = h * fac
+    reject(run.fs, run.iw, h, fac, kind)
     return False
 
 
