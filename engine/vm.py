@@ -24,7 +24,9 @@ import math
 from typing import NamedTuple
 
 import numpy as np
-from numba import njit
+from llvmlite import ir
+from numba import njit, types
+from numba.extending import intrinsic
 
 # Opcodes. Numbers are part of the program format (programs are cached by
 # content hash), so append new ones; never renumber.
@@ -83,6 +85,10 @@ class Kernel(NamedTuple):
     # Structural mass-action part of the right-hand side, packed into one int64 array
     # (see mass_action); [0, 0] when the model has no reactions.
     ma: np.ndarray = np.zeros(2, dtype=np.int64)
+    # Addresses of machine-code versions of the right-hand side (mass-action part
+    # included) and of the Jacobian values (engine.native); 0: the programs run here.
+    native_rhs: int = 0
+    native_jac: int = 0
 
 
 # error_model="numpy": x/0 gives inf/nan like numpy instead of raising ZeroDivisionError.
@@ -271,10 +277,37 @@ def _pow(x, e):
     return x ** e
 
 
+@intrinsic
+def call_native(typingctx, address, t, y, p, out):
+    """Call ``void f(double t, double *y, double *p, double *out)`` at ``address``
+    (an engine.native cfunc) with the arrays' data pointers."""
+    arrays = (y, p, out)
+    if not (isinstance(address, types.Integer) and isinstance(t, types.Float)
+            and all(isinstance(a, types.Array) and a.ndim == 1 and a.layout == "C"
+                    and a.dtype == types.float64 for a in arrays)):
+        return None
+    sig = types.void(address, t, y, p, out)
+
+    def codegen(context, builder, signature, args):
+        dbl = ir.DoubleType()
+        fnty = ir.FunctionType(ir.VoidType(), [dbl, dbl.as_pointer(), dbl.as_pointer(),
+                                               dbl.as_pointer()])
+        fn = builder.inttoptr(args[0], fnty.as_pointer())
+        tv = context.cast(builder, args[1], signature.args[1], types.float64)
+        ptrs = [context.make_array(ty)(context, builder, v).data
+                for ty, v in zip(signature.args[2:], args[2:])]
+        builder.call(fn, [tv, *ptrs])
+        return context.get_dummy_value()
+
+    return sig, codegen
+
+
 @njit(cache=True, nogil=True, _nrt=False)
 def rhs(kernel, t, y, p, regs, out):
     """dy/dt into ``out`` (length n): the program's terms, then the mass-action terms."""
-    if kernel.ma[0] == 0:  # no reactions: one call level less (the program alone)
+    if kernel.native_rhs != 0:
+        call_native(kernel.native_rhs, t, y, p, out)
+    elif kernel.ma[0] == 0:  # no reactions: one call level less (the program alone)
         run(kernel.rhs_code, kernel.consts, t, y, p, regs, out)
     else:
         rhs_parts(kernel.rhs_code, kernel.consts, kernel.ma, t, y, p, regs, out)
@@ -297,13 +330,19 @@ def rhs_parts(rhs_code, consts, ma, t, y, p, regs, out):
 @njit(cache=True, nogil=True, _nrt=False)
 def jac_values(kernel, t, y, p, regs, vals):
     """Nonzero Jacobian values into ``vals`` in the kernel's COO order."""
-    run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
+    if kernel.native_jac != 0:
+        call_native(kernel.native_jac, t, y, p, vals)
+    else:
+        run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
 
 
 @njit(cache=True, nogil=True, _nrt=False)
 def jac_dense(kernel, t, y, p, regs, vals, J):
     """Dense Jacobian into ``J`` (n x n), via the sparse values."""
-    run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
+    if kernel.native_jac != 0:
+        call_native(kernel.native_jac, t, y, p, vals)
+    else:
+        run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
     J[:, :] = 0.0
     for k in range(vals.shape[0]):
         J[kernel.jac_rows[k], kernel.jac_cols[k]] = vals[k]

@@ -1,0 +1,280 @@
+"""Machine-code tier for a model's right-hand side and Jacobian values.
+
+The register machine (``engine.vm``) runs every model without compiling per model,
+at about 2 ns per instruction. A model evaluated many times (a sweep, a long
+solve) can instead have its right-hand side and Jacobian programs translated into
+one straight-line numba ``cfunc`` each, about 5x faster per call (see
+docs/engine.md, "Machine-code tier").
+
+The translation reads only the compiled program: integer opcodes, register
+indices and float constants. No text from the model ever reaches the generated
+source (names and expressions stay behind in the parser), and every operation is
+spelled with the same helper the interpreter uses, in the same order, so values
+are bit-identical to the interpreter's.
+
+Generated modules are written to ``<numba cache>/native/k_<hash>.py`` and
+compiled with ``cache=True``, so a second process (another worker, the next
+``make run``) loads machine code from disk instead of compiling. Compiled code is
+never freed by numba, so one process builds at most :data:`MAX_PER_PROCESS`
+kernels; past that, models run on the interpreter (a long-running worker keeps
+bounded memory). Programs longer than :data:`MAX_ROWS` stay interpreted too:
+compile time grows faster than linearly with the function's length, and large
+models spend their time in linear algebra, not here.
+"""
+from __future__ import annotations
+
+import hashlib
+import importlib.util
+import math
+import os
+import sys
+import threading
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from engine import vm
+
+MAX_ROWS = 1500        # per program; beyond this the interpreter runs it
+MAX_PER_PROCESS = 256  # kernels compiled (or loaded) by one process
+
+_BINARY = {vm.ADD: "+", vm.SUB: "-", vm.MUL: "*", vm.DIV: "/"}
+_COMPARE = {vm.LT: "<", vm.LE: "<=", vm.GT: ">", vm.GE: ">=", vm.EQ: "==", vm.NE: "!="}
+_UNARY = {  # op -> expression template over x (same spelling as engine.vm.run)
+    vm.NEG: "-{x}",
+    vm.SQUARE: "{x} * {x}",
+    vm.EXP: "math.exp(min({x}, 709.0))",
+    vm.LOG: "_log({x})",
+    vm.LOG10: "(math.log10({x}) if {x} > 0.0 else (-math.inf if {x} == 0.0 else math.nan))",
+    vm.SQRT: "(math.sqrt({x}) if {x} >= 0.0 else math.nan)",
+    vm.SIN: "math.sin({x})", vm.COS: "math.cos({x})", vm.TAN: "math.tan({x})",
+    vm.SINH: "math.sinh(min(max({x}, -709.0), 709.0))",
+    vm.COSH: "math.cosh(min(max({x}, -709.0), 709.0))",
+    vm.TANH: "math.tanh({x})", vm.ABS: "abs({x})",
+    vm.SIGN: "(1.0 if {x} > 0.0 else (-1.0 if {x} < 0.0 else 0.0))",
+    vm.STEP: "(1.0 if {x} >= 0.0 else 0.0)",
+    vm.NOT: "(1.0 if {x} == 0.0 else 0.0)",
+    vm.MOVE: "{x}",
+}
+
+
+class Untranslatable(Exception):
+    """A program this tier does not translate (the interpreter runs it instead)."""
+
+
+def _literal(value: float) -> str:
+    v = float(value)
+    if math.isnan(v):
+        return "math.nan"
+    if math.isinf(v):
+        return "math.inf" if v > 0 else "(-math.inf)"
+    return f"({v!r})"
+
+
+def _program_lines(code: np.ndarray, consts: np.ndarray, out_name: str) -> list[str]:
+    """Body lines for one program; registers become locals ``r<i>``."""
+    lines: list[str] = []
+    c = [_literal(v) for v in consts]
+
+    def r(i):
+        return f"r{int(i)}"
+
+    k0 = 0
+    if code.shape[0] and code[0, 0] == vm.PROLOGUE:
+        ny, npar, nc, ht = (int(v) for v in code[0, 1:5])
+        for i in range(ny):
+            lines.append(f"r{i} = y[{i}]")
+        for i in range(npar):
+            lines.append(f"r{ny + i} = p[{i}]")
+        o = ny + npar
+        if ht:
+            lines.append(f"r{o} = t")
+            o += 1
+        for i in range(nc):
+            lines.append(f"r{o + i} = {c[i]}")
+        k0 = 1
+    for row in code[k0:]:
+        op, d, a, b, e = (int(v) for v in row)
+        if op in _BINARY:
+            lines.append(f"{r(d)} = {r(a)} {_BINARY[op]} {r(b)}")
+        elif op == vm.OUT:
+            lines.append(f"{out_name}[{d}] = {r(a)}")
+        elif op == vm.OUTC:
+            lines.append(f"{out_name}[{d}] = {c[a]}")
+        elif op == vm.STATE:
+            lines.append(f"{r(d)} = y[{a}]")
+        elif op == vm.PARAM:
+            lines.append(f"{r(d)} = p[{a}]")
+        elif op == vm.CONST:
+            lines.append(f"{r(d)} = {c[a]}")
+        elif op == vm.TIME:
+            lines.append(f"{r(d)} = t")
+        elif op == vm.MULADD:
+            lines.append(f"{r(d)} = {r(a)} * {r(b)} + {r(e)}")
+        elif op == vm.MULC:
+            lines.append(f"{r(d)} = {r(a)} * {c[b]}")
+        elif op == vm.MULP:
+            lines.append(f"{r(d)} = {r(a)} * p[{b}]")
+        elif op == vm.MULADDC:
+            lines.append(f"{r(d)} = {r(a)} * {c[b]} + {r(e)}")
+        elif op == vm.MULADDP:
+            lines.append(f"{r(d)} = {r(a)} * p[{b}] + {r(e)}")
+        elif op == vm.POWI:
+            lines.append(f"{r(d)} = _powi({r(a)}, {b})")
+        elif op == vm.POW:
+            lines.append(f"{r(d)} = _pow({r(a)}, {r(b)})")
+        elif op in _UNARY:
+            lines.append(f"{r(d)} = " + _UNARY[op].format(x=r(a)))
+        elif op in _COMPARE:
+            lines.append(f"{r(d)} = 1.0 if {r(a)} {_COMPARE[op]} {r(b)} else 0.0")
+        elif op == vm.MIN:
+            lines.append(f"{r(d)} = min({r(a)}, {r(b)})")
+        elif op == vm.MAX:
+            lines.append(f"{r(d)} = max({r(a)}, {r(b)})")
+        elif op == vm.AND:
+            lines.append(f"{r(d)} = 1.0 if ({r(a)} != 0.0 and {r(b)} != 0.0) else 0.0")
+        elif op == vm.OR:
+            lines.append(f"{r(d)} = 1.0 if ({r(a)} != 0.0 or {r(b)} != 0.0) else 0.0")
+        elif op == vm.SELECT:
+            lines.append(f"{r(d)} = {r(b)} if {r(a)} != 0.0 else {r(e)}")
+        else:
+            raise Untranslatable(f"opcode {op}")
+    return lines
+
+
+def _mass_action_lines(ma: np.ndarray, consts: np.ndarray) -> list[str]:
+    """``engine.vm.mass_action`` unrolled: the same products in the same order."""
+    m, v0 = int(ma[0]), int(ma[1])
+    kb, lines = 2, []
+    rp = kb + 4 * m
+    pp = rp + m + 1
+    sp = pp + m + 1
+    s0 = int(ma[sp])
+
+    def source(kind, i):
+        if kind == vm.K_PARAM:
+            return f"p[{i}]"
+        if kind == vm.K_REG:
+            return f"r{i}"
+        return _literal(consts[i])
+
+    for j in range(m):
+        c = kb + 4 * j
+        expr = source(int(ma[c]), int(ma[c + 1]))
+        for q in range(int(ma[rp + j]), int(ma[rp + j + 1])):
+            expr += f" * y[{int(ma[q])}]"
+        lines.append(f"w = {expr}")
+        if int(ma[c + 2]) != vm.K_NONE:
+            expr = source(int(ma[c + 2]), int(ma[c + 3]))
+            for q in range(int(ma[pp + j]), int(ma[pp + j + 1])):
+                expr += f" * y[{int(ma[q])}]"
+            lines.append(f"w = w - {expr}")
+        for q in range(int(ma[sp + j]), int(ma[sp + j + 1])):
+            lines.append(f"out[{int(ma[q])}] += {_literal(consts[v0 + q - s0])} * w")
+    return lines
+
+
+_HEADER = '''"""Generated by engine.native from a compiled model program. Do not edit."""
+import math
+from numba import carray, cfunc, types
+from engine.vm import _log, _pow, _powi
+
+_P = types.CPointer(types.float64)
+SIG = types.void(types.float64, _P, _P, _P)
+'''
+
+
+def _function(name: str, n_y: int, n_p: int, n_out: int, out_name: str, body: list[str]) -> str:
+    head = [
+        "",
+        "",
+        '@cfunc(SIG, cache=True, nopython=True, error_model="numpy")',
+        f"def {name}(t, y_ptr, p_ptr, out_ptr):",
+        f"    y = carray(y_ptr, ({max(n_y, 1)},))",
+        f"    p = carray(p_ptr, ({max(n_p, 1)},))",
+        f"    {out_name} = carray(out_ptr, ({max(n_out, 1)},))",
+    ]
+    return "\n".join(head + ["    " + line for line in body] + ["    return", ""])
+
+
+def module_source(kernel: vm.Kernel, n_params: int) -> str:
+    """Python source of the generated module (functions ``rhs`` and ``jac``)."""
+    for code in (kernel.rhs_code, kernel.jac_code):
+        if code.shape[0] > MAX_ROWS:
+            raise Untranslatable(f"a program of {code.shape[0]} rows (limit {MAX_ROWS})")
+    rhs = []
+    if kernel.ma[0] > 0:
+        rhs.append(f"for i in range({kernel.n}):")
+        rhs.append("    out[i] = 0.0")
+    rhs += _program_lines(kernel.rhs_code, kernel.consts, "out")
+    if kernel.ma[0] > 0:
+        rhs += _mass_action_lines(kernel.ma, kernel.consts)
+    jac = _program_lines(kernel.jac_code, kernel.consts, "out")
+    nnz = int(kernel.jac_rows.shape[0])
+    return (_HEADER + _function("rhs", kernel.n, n_params, kernel.n, "out", rhs)
+            + _function("jac", kernel.n, n_params, nnz, "out", jac))
+
+
+@dataclass(frozen=True)
+class NativeBuild:
+    """What one attempt to build a kernel's machine code gave."""
+
+    kernel: vm.Kernel   # the kernel with its native addresses set (or unchanged)
+    used: bool          # whether the machine code is in use
+    seconds: float      # translation and compile (or cache load) time
+    reason: str         # why not, when not used ("" when used)
+
+
+_lock = threading.Lock()
+_modules: dict[str, object] = {}  # digest -> module (keeps the machine code alive)
+
+
+def _cache_folder() -> Path:
+    base = os.environ.get("NUMBA_CACHE_DIR") or str(Path.cwd() / "var" / "numba-cache")
+    return Path(base) / "native"
+
+
+def _load(digest: str, source: str):
+    folder = _cache_folder()
+    folder.mkdir(parents=True, exist_ok=True)
+    path = folder / f"k_{digest}.py"
+    if not path.exists() or path.read_text() != source:
+        tmp = folder / f".k_{digest}.{os.getpid()}.tmp"
+        tmp.write_text(source)
+        os.replace(tmp, path)  # atomic: a concurrent worker sees the old or the new file
+    name = f"stifflane_native_k_{digest}"
+    spec = importlib.util.spec_from_file_location(name, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[name] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+def build(kernel: vm.Kernel, n_params: int) -> NativeBuild:
+    """The kernel with machine-code right-hand side and Jacobian, when this tier can
+    build them; otherwise the kernel unchanged and the reason."""
+    started = time.perf_counter()
+    if kernel.native_rhs != 0:
+        return NativeBuild(kernel, True, 0.0, "")
+    try:
+        source = module_source(kernel, n_params)
+    except Untranslatable as exc:
+        return NativeBuild(kernel, False, time.perf_counter() - started, str(exc))
+    digest = hashlib.sha256(source.encode()).hexdigest()[:24]
+    with _lock:
+        module = _modules.get(digest)
+        if module is None:
+            if len(_modules) >= MAX_PER_PROCESS:
+                return NativeBuild(kernel, False, time.perf_counter() - started,
+                                   f"this process already holds {MAX_PER_PROCESS} compiled models")
+            module = _load(digest, source)
+            _modules[digest] = module
+    native = kernel._replace(native_rhs=int(module.rhs.address), native_jac=int(module.jac.address))
+    return NativeBuild(native, True, time.perf_counter() - started, "")
+
+
+def loaded() -> int:
+    """Number of kernels whose machine code this process holds."""
+    return len(_modules)
