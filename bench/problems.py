@@ -10,6 +10,7 @@ bench/references.py) as an independent second opinion.
 from __future__ import annotations
 
 import json
+import time
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Callable, Optional
@@ -150,19 +151,33 @@ NON_STIFF = ("arenstorf", "lorenz")
 
 
 _PREPARED: dict = {}
+MACHINE_CODE: dict = {}
 
 
 def prepare_problem(problem: Problem):
-    """The engine's PreparedModel for ``problem``, kept per problem object.
+    """The engine's PreparedModel for ``problem``, kept per problem object, with its
+    machine code when the engine builds one (as a worker does for batches and repeated
+    models; the build time is in ``machine_code_info``, not in any timed run).
 
     Kept here (not only in prepare's content-hash cache) because hashing a large
     model's JSON on every call would be charged to the solver being timed.
     """
+    from engine import native
     from engine.limits import Limits
     from engine.model import prepare
     key = id(problem)
     hit = _PREPARED.get(key)
     if hit is None or hit[0] is not problem:
+        started = time.perf_counter()
         pm = prepare(problem.model, Limits(**problem.limits) if problem.limits else None)
+        pm, info = native.choose(pm, native.ALWAYS)
+        info["prepare_seconds"] = time.perf_counter() - started
         hit = _PREPARED[key] = (problem, pm)
+        MACHINE_CODE[problem.name] = info
     return hit[1]
+
+
+def machine_code_info(problem: Problem) -> dict:
+    """Whether ``problem``'s engine model runs as machine code, and its build time."""
+    prepare_problem(problem)
+    return MACHINE_CODE[problem.name]

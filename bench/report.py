@@ -98,6 +98,15 @@ def _secs(x):
     return f"{x * 1e3:.3g} ms" if x < 1 else f"{x:.3g} s"
 
 
+def _tier(info) -> str:
+    """The Problems table's note on how the engine evaluated the model (engine.native)."""
+    if not info:
+        return "-"
+    if info.get("used"):
+        return f"machine code (built or loaded in {info['seconds']:.2f} s, untimed)"
+    return f"interpreter ({info.get('reason', '')})"
+
+
 def table(records, problem, rtol) -> list[str]:
     rows = [r for r in records if r["problem"] == problem and r["rtol"] == rtol]
     if not rows:
@@ -125,12 +134,12 @@ def markdown(result: dict) -> str:
         met = {True: "yes", False: "**no**", None: "n/a"}[r["met"]]
         lines.append(f"| {r['target']} | {r['problem']} | {r['basis']} | {_f(r['digits'], '.1f')} "
                      f"| {_f(r['value'])} | {r['kind']} {r['goal']:g} | {met} |")
-    lines += ["", "### Problems", "", "| problem | n | source | reference | published vs reference (digits) |",
-              "|---|---:|---|---|---:|"]
+    lines += ["", "### Problems", "", "| problem | n | source | reference | published vs reference (digits) "
+              "| engine evaluates by |", "|---|---:|---|---|---:|---|"]
     for p in result["problems"]:
         ref = f"SciPy {p.get('reference_method', '-')} rtol {p.get('reference_rtol', '-')}"
         lines.append(f"| {p['problem']} | {p['n']} | {p['source']} | {ref} "
-                     f"| {_f(p.get('published_vs_reference_digits'), '.1f')} |")
+                     f"| {_f(p.get('published_vs_reference_digits'), '.1f')} | {_tier(p.get('machine_code'))} |")
     sw = result.get("sweep")
     if sw:
         lines += ["", f"Sweep: {sw['members']} Robertson solves in {sw['seconds']:.2f} s = "

@@ -100,7 +100,8 @@ def run_problem(problem, rtols, peers, cap, budget, reps, log) -> tuple[list, di
                 f"{_fmt(rec['seconds'])} s  digits {_fmt(rec['digits'])}")
     summary = {"problem": problem.name, "n": problem.n, "source": problem.source,
                "t_end": problem.t_end, "stiff": problem.stiff, "floor": problem.floor,
-               "atol_scale": problem.atol_scale, "published_note": problem.published_note}
+               "atol_scale": problem.atol_scale, "published_note": problem.published_note,
+               "machine_code": PR.machine_code_info(problem)}
     if ref:
         summary.update(reference_method=ref["method"], reference_rtol=ref["rtol"],
                        reference_seconds=ref.get("seconds"),

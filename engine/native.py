@@ -30,7 +30,7 @@ import os
 import sys
 import threading
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -252,9 +252,13 @@ def _load(digest: str, source: str):
     return module
 
 
-def build(kernel: vm.Kernel, n_params: int) -> NativeBuild:
+def build(kernel: vm.Kernel, n_params: int, compile_new: bool = True) -> NativeBuild:
     """The kernel with machine-code right-hand side and Jacobian, when this tier can
-    build them; otherwise the kernel unchanged and the reason."""
+    build them; otherwise the kernel unchanged and the reason.
+
+    ``compile_new=False`` only loads machine code this process holds or an earlier
+    process left on disk (milliseconds), and never compiles (0.1-0.5 s per model).
+    """
     started = time.perf_counter()
     if kernel.native_rhs != 0:
         return NativeBuild(kernel, True, 0.0, "")
@@ -266,6 +270,9 @@ def build(kernel: vm.Kernel, n_params: int) -> NativeBuild:
     with _lock:
         module = _modules.get(digest)
         if module is None:
+            if not compile_new and not (_cache_folder() / f"k_{digest}.py").exists():
+                return NativeBuild(kernel, False, time.perf_counter() - started,
+                                   "not compiled yet (first use of this model)")
             if len(_modules) >= MAX_PER_PROCESS:
                 return NativeBuild(kernel, False, time.perf_counter() - started,
                                    f"this process already holds {MAX_PER_PROCESS} compiled models")
@@ -278,3 +285,36 @@ def build(kernel: vm.Kernel, n_params: int) -> NativeBuild:
 def loaded() -> int:
     """Number of kernels whose machine code this process holds."""
     return len(_modules)
+
+
+# Job option values (schemas.job.MACHINE_CODE)
+AUTO, ALWAYS, NEVER = "auto", "always", "never"
+MODES = (AUTO, ALWAYS, NEVER)
+
+_uses: dict[str, int] = {}  # model content hash -> solves asked for in this process
+
+
+def choose(prepared, mode: str = AUTO, many: bool = False):
+    """``(prepared, info)``: the model with machine code when ``mode`` asks for it, and
+    the report entry saying what was used.
+
+    ``auto`` compiles for batches (``many``) and for a model this process has solved
+    before; otherwise it uses machine code only if some process already compiled it
+    (loading takes milliseconds), so a one-off small job does not wait 0.1-0.5 s for a
+    compile that its own solve would not repay.
+    """
+    if mode == NEVER:
+        return prepared, {"used": False, "seconds": 0.0, "reason": "the job asked for the interpreter"}
+    key = prepared.content_hash
+    with _lock:
+        seen = _uses.get(key, 0)
+        if key:
+            _uses[key] = seen + 1
+            while len(_uses) > 4 * MAX_PER_PROCESS:
+                _uses.pop(next(iter(_uses)))
+    compile_new = mode == ALWAYS or many or seen > 0
+    result = build(prepared.kernel, len(prepared.param_names), compile_new=compile_new)
+    info = {"used": result.used, "seconds": round(result.seconds, 6), "reason": result.reason}
+    if not result.used:
+        return prepared, info
+    return replace(prepared, kernel=result.kernel), info

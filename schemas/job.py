@@ -13,6 +13,7 @@ import numpy as np
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
 from engine.integrate import METHODS
+from engine.native import MODES as MACHINE_CODE_MODES
 from schemas.model import ModelField
 
 MAX_OUTPUT_POINTS = 100_000
@@ -113,6 +114,12 @@ class JobSpecSchema(Schema):
     output = fields.Nested(OutputSchema, load_default=lambda: {"count": 101, "spacing": "linear"})
     tolerance = fields.Nested(ToleranceSchema, load_default=lambda: ToleranceSchema().load({}))
     method = fields.String(validate=validate.OneOf(METHODS), load_default="auto")
+    machine_code = fields.String(
+        validate=validate.OneOf(MACHINE_CODE_MODES), load_default="auto",
+        metadata={"description": "translate the model's right-hand side and Jacobian into machine "
+                                 "code (about 5x faster per evaluation; 0.1-0.5 s to compile once per "
+                                 "model, kept on disk): 'auto' compiles for batches and for models "
+                                 "solved before, 'always', or 'never' (the interpreter)"})
     limits = fields.Nested(LimitsSchema, load_default=lambda: LimitsSchema().load({}))
     nonnegative = fields.Boolean(load_default=False,
                                  metadata={"description": "keep every state >= 0 (concentrations)"})

@@ -17,7 +17,7 @@ from typing import Callable
 
 import numpy as np
 
-from engine import sampling, summaries
+from engine import native, sampling, summaries
 from engine.integrate import CANCELLED, SUCCEEDED, SolverOptions, integrate
 from engine.model import PreparedModel, prepare
 from jobs import blob as result_blob
@@ -50,7 +50,8 @@ def make_plan(spec: dict, design: dict) -> BatchPlan:
     """Build the plan of a stored batch spec (validated again: a stored spec is still input)."""
     data = BatchSpecSchema(max_members=10 ** 9, max_trajectory_values=10 ** 12).load(spec)
     base = data["base"]
-    model = prepare(base["model"])
+    model, machine_code = native.choose(prepare(base["model"]), base["machine_code"], many=True)
+    log.info("batch model %s: machine code %s", model.content_hash[:12], machine_code)
     sums = data["summaries"]
     extra = [s["time"] for s in sums if s["kind"] == "at"]
     out_times = output_times(base["span"], base["output"]) if data["trajectories"] else np.zeros(0)

@@ -13,6 +13,7 @@ import traceback
 
 from marshmallow import ValidationError
 
+from engine import native
 from engine.integrate import CANCELLED, SUCCEEDED, integrate
 from engine.model import ModelError, prepare
 from jobs import blob as result_blob
@@ -24,7 +25,7 @@ log = logging.getLogger(__name__)
 
 DIGEST_KEYS = ("accepted_steps", "rejected_steps", "rhs_evaluations", "jacobian_evaluations",
                "lu_factorizations", "newton_iterations", "solve_seconds", "prepare_seconds",
-               "methods_used", "switch_count")
+               "methods_used", "switch_count", "machine_code")
 
 
 class Heartbeat:
@@ -87,7 +88,7 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
     try:
         spec = JobSpecSchema().load(store.spec(job_id))
         t_prep = time.perf_counter()
-        prepared = prepare(spec["model"])
+        prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
         prepare_seconds = time.perf_counter() - t_prep
         p, y0 = prepared.with_overrides(spec["parameters"], spec["initial"])
         times = output_times(spec["span"], spec["output"])
@@ -101,6 +102,7 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         log.error("job %s crashed in the engine:\n%s", job_id, traceback.format_exc())
         return "failed", "internal_error", f"internal error while solving ({type(e).__name__}: {e})", {}, None
     state = {SUCCEEDED: "succeeded", CANCELLED: "cancelled"}.get(sol.outcome, "failed")
+    sol.report["machine_code"] = machine_code
     summary = result_blob.json_safe(digest(sol.report, prepare_seconds) | {"t_reached": sol.t_reached})
     events = [{"name": prepared.event_names[int(i)], "t": float(t), "states": dict(zip(prepared.state_names, y))}
               for i, t, y in zip(sol.event_index, sol.event_t, sol.event_y)]

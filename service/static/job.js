@@ -39,9 +39,17 @@
       ['state', stateBadge(job.state)], ['outcome', esc(job.outcome || '—')], ['method asked', esc(job.method)],
       ['methods used', esc((d.methods_used || []).join(', ') || '—')], ['reached t', num(d.t_reached)],
       ['submitted', esc(new Date(job.created_at).toLocaleString())], ['wall time', duration(elapsed(job))],
-      ['solver time', duration(d.solve_seconds)], ['attempt', num(job.attempt)],
+      ['solver time', duration(d.solve_seconds)], ['model evaluated by', tier(d.machine_code)],
+      ['attempt', num(job.attempt)],
       job.owner ? ['owner', esc(job.owner)] : ['owner', undefined],
     ]);
+  }
+
+  // how the worker evaluated the model's right-hand side (engine.native)
+  function tier(mc) {
+    if (!mc) return '—';
+    if (mc.used) return `machine code (${duration(mc.seconds)} to build or load)`;
+    return `interpreter <span class="sub">(${esc(mc.reason || '')})</span>`;
   }
 
   async function poll() {

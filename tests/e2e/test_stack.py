@@ -47,11 +47,13 @@ def oscillator_span(seconds: float) -> float:
 
 
 # A harmonic oscillator over many periods at tight tolerance: a deliberately long job.
+# It runs on the interpreter, as oscillator_span measures it.
 LONG = {
     "label": "long oscillator (e2e)",
     "model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}},
     "span": [0.0, 1.0e7], "output": {"count": 3}, "tolerance": {"rtol": 1e-12, "atol": 1e-14},
     "method": "dopri5", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120},
+    "machine_code": "never",
 }
 
 
@@ -91,6 +93,20 @@ def test_a_running_job_stops_within_two_seconds_of_cancel(stack):
     view = stack.wait(job_id, timeout=10)
     assert view["state"] == "cancelled"
     assert time.time() - asked < 2.5  # 2 s target plus polling slack
+
+
+def test_a_job_asking_for_machine_code_gets_it_and_the_same_answer(stack):
+    spec = dict(linear_spec(), machine_code="always")
+    view = stack.wait(stack.submit(spec))
+    assert view["state"] == "succeeded", view
+    assert view["digest"]["machine_code"]["used"] is True
+    result = requests.get(f"{stack.base}/v1/jobs/{view['id']}/result", timeout=10).json()
+    t = np.array(result["times"])
+    y = np.column_stack([result["states"][n] for n in NAMES])
+    exact = np.array([expm(A * ti) @ Y0 for ti in t])  # oracle: scipy.linalg.expm
+    assert (np.abs(y - exact) / (1e-12 + 1e-8 * np.abs(exact))).max() < 10
+    r = requests.post(f"{stack.base}/v1/jobs", json=dict(spec, machine_code="sometimes"), timeout=10)
+    assert r.status_code == 422 and "machine_code" in r.text
 
 
 def test_a_bad_spec_is_refused_and_never_queued(stack):
