@@ -12,7 +12,10 @@ from numba import njit
 def lu_factor(a, piv):
     """In-place LU of ``a`` (row pivots into ``piv``); returns False if singular.
 
-    Real or complex ``a``; pivots by |re| + |im| (the modulus for real entries).
+    Real or complex ``a``; pivots by |re| + |im| (the modulus for real entries). The
+    diagonal keeps the *reciprocals* of U's diagonal, so :func:`lu_solve` multiplies
+    instead of dividing (a complex division costs several times a multiplication, and
+    the solves run two or three times per Newton iteration).
     """
     n = a.shape[0]
     for k in range(n):
@@ -32,6 +35,7 @@ def lu_factor(a, piv):
                 a[k, j] = a[p, j]
                 a[p, j] = tmp
         inv = 1.0 / a[k, k]
+        a[k, k] = inv
         for i in range(k + 1, n):
             a[i, k] *= inv
         for i in range(k + 1, n):
@@ -61,7 +65,7 @@ def lu_solve(a, piv, b):
         s = b[i]
         for j in range(i + 1, n):
             s -= a[i, j] * b[j]
-        b[i] = s / a[i, i]
+        b[i] = s * a[i, i]  # the reciprocal of U's diagonal (lu_factor)
 
 
 # numba compiles one specialisation per argument type, so the same functions serve
