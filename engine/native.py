@@ -2,9 +2,10 @@
 
 The register machine (``engine.vm``) runs every model without compiling per model,
 at about 2 ns per instruction. A model evaluated many times (a sweep, a long
-solve) can instead have its right-hand side and Jacobian programs translated into
-one straight-line numba ``cfunc`` each, about 5x faster per call (see
-docs/engine.md, "Machine-code tier").
+solve) can instead have its right-hand side, Jacobian and event programs
+translated into one straight-line numba ``cfunc`` each, several times faster per
+call (see docs/engine.md, "Machine-code tier"). Derived quantities, evaluated only
+at output times, stay interpreted.
 
 The translation reads only the compiled program: integer opcodes, register
 indices and float constants. No text from the model ever reaches the generated
@@ -200,8 +201,8 @@ def _function(name: str, n_y: int, n_p: int, n_out: int, out_name: str, body: li
 
 
 def module_source(kernel: vm.Kernel, n_params: int) -> str:
-    """Python source of the generated module (functions ``rhs`` and ``jac``)."""
-    for code in (kernel.rhs_code, kernel.jac_code):
+    """Python source of the generated module (functions ``rhs``, ``jac``, ``events``)."""
+    for code in (kernel.rhs_code, kernel.jac_code, kernel.event_code):
         if code.shape[0] > MAX_ROWS:
             raise Untranslatable(f"a program of {code.shape[0]} rows (limit {MAX_ROWS})")
     rhs = []
@@ -213,8 +214,10 @@ def module_source(kernel: vm.Kernel, n_params: int) -> str:
         rhs += _mass_action_lines(kernel.ma, kernel.consts)
     jac = _program_lines(kernel.jac_code, kernel.consts, "out")
     nnz = int(kernel.jac_rows.shape[0])
+    events = _program_lines(kernel.event_code, kernel.consts, "out")
     return (_HEADER + _function("rhs", kernel.n, n_params, kernel.n, "out", rhs)
-            + _function("jac", kernel.n, n_params, nnz, "out", jac))
+            + _function("jac", kernel.n, n_params, nnz, "out", jac)
+            + _function("events", kernel.n, n_params, kernel.n_events, "out", events))
 
 
 @dataclass(frozen=True)
@@ -272,13 +275,15 @@ def build(kernel: vm.Kernel, n_params: int, compile_new: bool = True) -> NativeB
         if module is None:
             if not compile_new and not (_cache_folder() / f"k_{digest}.py").exists():
                 return NativeBuild(kernel, False, time.perf_counter() - started,
-                                   "not compiled yet (first use of this model)")
+                                   "not compiled: a compile would cost more than it saves "
+                                   f"here (about {compile_estimate(kernel):.1f} s)")
             if len(_modules) >= MAX_PER_PROCESS:
                 return NativeBuild(kernel, False, time.perf_counter() - started,
                                    f"this process already holds {MAX_PER_PROCESS} compiled models")
             module = _load(digest, source)
             _modules[digest] = module
-    native = kernel._replace(native_rhs=int(module.rhs.address), native_jac=int(module.jac.address))
+    native = kernel._replace(native_rhs=int(module.rhs.address), native_jac=int(module.jac.address),
+                             native_events=int(module.events.address) if kernel.n_events else 0)
     return NativeBuild(native, True, time.perf_counter() - started, "")
 
 
@@ -293,15 +298,28 @@ MODES = (AUTO, ALWAYS, NEVER)
 
 _uses: dict[str, int] = {}  # model content hash -> solves asked for in this process
 
+# Compile time measured here (numba 0.68, 2-core Xeon): about 0.1 s plus 1.5 ms per
+# program row (HIRES' 70 rows: 0.4 s; 1,050 rows: 1.8 s; 2,250 rows: 3.2 s).
+BATCH_MIN_MEMBERS = 64       # auto compiles for batches at least this large
+REPEAT_MAX_SECONDS = 1.0     # ... and for a model asked for again, if this quick to compile
 
-def choose(prepared, mode: str = AUTO, many: bool = False):
+
+def compile_estimate(kernel: vm.Kernel) -> float:
+    """Rough seconds numba takes to compile the kernel's machine code."""
+    rows = kernel.rhs_code.shape[0] + kernel.jac_code.shape[0] + kernel.event_code.shape[0]
+    return 0.1 + 0.0015 * rows
+
+
+def choose(prepared, mode: str = AUTO, solves: int = 1):
     """``(prepared, info)``: the model with machine code when ``mode`` asks for it, and
     the report entry saying what was used.
 
-    ``auto`` compiles for batches (``many``) and for a model this process has solved
-    before; otherwise it uses machine code only if some process already compiled it
-    (loading takes milliseconds), so a one-off small job does not wait 0.1-0.5 s for a
-    compile that its own solve would not repay.
+    ``auto`` loads machine code that any process on this host compiled before
+    (milliseconds); it compiles new machine code for a batch of at least
+    :data:`BATCH_MIN_MEMBERS` members (``solves``), and for a model this process was
+    asked for before when the compile is quick (:data:`REPEAT_MAX_SECONDS`); so a
+    one-off job does not wait for a compile its own solve would not repay. ``always``
+    compiles whenever the tier can; ``never`` keeps the interpreter.
     """
     if mode == NEVER:
         return prepared, {"used": False, "seconds": 0.0, "reason": "the job asked for the interpreter"}
@@ -312,7 +330,8 @@ def choose(prepared, mode: str = AUTO, many: bool = False):
             _uses[key] = seen + 1
             while len(_uses) > 4 * MAX_PER_PROCESS:
                 _uses.pop(next(iter(_uses)))
-    compile_new = mode == ALWAYS or many or seen > 0
+    compile_new = (mode == ALWAYS or solves >= BATCH_MIN_MEMBERS
+                   or (seen > 0 and compile_estimate(prepared.kernel) <= REPEAT_MAX_SECONDS))
     result = build(prepared.kernel, len(prepared.param_names), compile_new=compile_new)
     info = {"used": result.used, "seconds": round(result.seconds, 6), "reason": result.reason}
     if not result.used:

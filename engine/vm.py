@@ -86,9 +86,11 @@ class Kernel(NamedTuple):
     # (see mass_action); [0, 0] when the model has no reactions.
     ma: np.ndarray = np.zeros(2, dtype=np.int64)
     # Addresses of machine-code versions of the right-hand side (mass-action part
-    # included) and of the Jacobian values (engine.native); 0: the programs run here.
+    # included), the Jacobian values and the event functions (engine.native); 0: the
+    # programs run here. Derived quantities (read at output times only) stay here.
     native_rhs: int = 0
     native_jac: int = 0
+    native_events: int = 0
 
 
 # error_model="numpy": x/0 gives inf/nan like numpy instead of raising ZeroDivisionError.
@@ -357,7 +359,10 @@ def aux(kernel, t, y, p, regs, out):
 @njit(cache=True, nogil=True, _nrt=False)
 def events(kernel, t, y, p, regs, out):
     """Event function values into ``out`` (length n_events)."""
-    run(kernel.event_code, kernel.consts, t, y, p, regs, out)
+    if kernel.native_events != 0:
+        call_native(kernel.native_events, t, y, p, out)
+    else:
+        run(kernel.event_code, kernel.consts, t, y, p, regs, out)
 
 
 def prologue_registers(code: np.ndarray) -> int:

@@ -50,7 +50,8 @@ def make_plan(spec: dict, design: dict) -> BatchPlan:
     """Build the plan of a stored batch spec (validated again: a stored spec is still input)."""
     data = BatchSpecSchema(max_members=10 ** 9, max_trajectory_values=10 ** 12).load(spec)
     base = data["base"]
-    model, machine_code = native.choose(prepare(base["model"]), base["machine_code"], many=True)
+    model, machine_code = native.choose(prepare(base["model"]), base["machine_code"],
+                                        solves=sampling.design_size(design))
     log.info("batch model %s: machine code %s", model.content_hash[:12], machine_code)
     sums = data["summaries"]
     extra = [s["time"] for s in sums if s["kind"] == "at"]

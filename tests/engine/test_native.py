@@ -179,17 +179,34 @@ def test_one_process_compiles_a_bounded_number_of_models(monkeypatch, empty_disk
     assert not out.used and "compiled models" in out.reason
 
 
-def test_auto_compiles_on_second_use_or_for_batches_and_never_means_never(empty_disk_cache):
+def test_auto_compiles_on_second_use_or_for_large_batches_and_never_means_never(empty_disk_cache):
     single = prepare(lorenz_variant(0.25, "policy test: single jobs"))
     batch = prepare(lorenz_variant(0.375, "policy test: batch"))
     m, info = native.choose(single, native.AUTO)  # nothing compiled on disk: interpreted
-    assert not info["used"] and "first use" in info["reason"] and m is single
+    assert not info["used"] and "cost more than it saves" in info["reason"] and m is single
     m, info = native.choose(single, native.AUTO)  # asked again: worth compiling now
     assert info["used"] and m.kernel.native_rhs != 0
     assert list(empty_disk_cache.glob("k_*.py"))  # kept on disk for the next process
-    m, info = native.choose(batch, native.NEVER, many=True)
+    m, info = native.choose(batch, native.NEVER, solves=10_000)
     assert not info["used"] and m.kernel.native_rhs == 0
-    m, info = native.choose(batch, native.AUTO, many=True)
+    m, info = native.choose(batch, native.AUTO, solves=native.BATCH_MIN_MEMBERS - 1)
+    assert not info["used"]  # a small batch of a new model: not worth a compile
+    m, info = native.choose(batch, native.AUTO, solves=native.BATCH_MIN_MEMBERS)
     assert info["used"]
     m, info = native.choose(prepare(lorenz_variant(0.5, "policy test: always")), native.ALWAYS)
     assert info["used"]
+
+
+def test_events_run_as_machine_code_and_are_located_as_before():
+    # y' = -k y, y(0) = 1 crosses 1/2 at t = ln 2 / k and 1/4 at 2 ln 2 / k (exact solution).
+    spec = {"title": "decay with two events (native test)", "states": {"y": 1.0},
+            "parameters": {"k": 1.5}, "ddt": {"y": "-k*y"},
+            "events": [{"name": "half", "when": "y - 0.5", "direction": "falling"},
+                       {"name": "quarter", "when": "y - 0.25", "stop": True}]}
+    m, kernel = compiled(spec)
+    assert kernel.native_events != 0
+    runs = [solve(mm, 10.0, "auto", 1e-8, 1e-12, event_directions=m.event_directions,
+                  event_terminal=m.event_terminal) for mm in (m, _with(m, kernel))]
+    assert same(runs[0].event_t, runs[1].event_t)
+    assert np.allclose(runs[1].event_t, [np.log(2) / 1.5, 2 * np.log(2) / 1.5], rtol=1e-7)
+    assert runs[1].terminal_event == 1
