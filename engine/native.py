@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import hashlib
 import importlib.util
+import logging
 import math
 import os
 import sys
@@ -37,6 +38,8 @@ from pathlib import Path
 import numpy as np
 
 from engine import vm
+
+log = logging.getLogger(__name__)
 
 MAX_ROWS = 1500        # per program; beyond this the interpreter runs it
 MAX_PER_PROCESS = 256  # kernels compiled (or loaded) by one process
@@ -280,7 +283,13 @@ def build(kernel: vm.Kernel, n_params: int, compile_new: bool = True) -> NativeB
             if len(_modules) >= MAX_PER_PROCESS:
                 return NativeBuild(kernel, False, time.perf_counter() - started,
                                    f"this process already holds {MAX_PER_PROCESS} compiled models")
-            module = _load(digest, source)
+            try:
+                module = _load(digest, source)
+            except Exception as exc:  # noqa: BLE001 - a failed compile leaves the interpreter
+                log.warning("machine code for kernel %s not built: %s: %s", digest,
+                            type(exc).__name__, exc)
+                return NativeBuild(kernel, False, time.perf_counter() - started,
+                                   f"compile failed ({type(exc).__name__}); the interpreter ran")
             _modules[digest] = module
     native = kernel._replace(native_rhs=int(module.rhs.address), native_jac=int(module.jac.address),
                              native_events=int(module.events.address) if kernel.n_events else 0)

@@ -1,4 +1,6 @@
 """The harness records every solver, including the ones that cannot run (bench/run.py)."""
+import time
+
 import numpy as np
 
 from bench import peers as P, problems as PR, run, timing
@@ -49,6 +51,18 @@ def test_timing_keeps_the_median_of_repeats_after_a_warm_up():
 
     def call():
         calls.append(1)
+        time.sleep(0.03)  # slower than MIN_SAMPLED / 2: max_repeats decides
         return {"status": "ok"}
     res = timing.measure(call, budget=10.0, max_repeats=3, jit=True)
-    assert len(calls) == 4 and res["repeats"] == 3 and res["seconds"] >= 0
+    assert len(calls) == 4 and res["repeats"] == 3 and res["seconds"] >= 0.03
+
+
+def test_fast_runs_repeat_until_enough_time_is_sampled():
+    calls = []
+
+    def call():
+        calls.append(1)
+        time.sleep(0.001)
+        return {"status": "ok"}
+    res = timing.measure(call, budget=10.0, max_repeats=3, jit=True)
+    assert res["repeats"] > 3 and res["repeats"] * 0.001 >= timing.MIN_SAMPLED * 0.9

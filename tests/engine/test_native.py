@@ -179,6 +179,17 @@ def test_one_process_compiles_a_bounded_number_of_models(monkeypatch, empty_disk
     assert not out.used and "compiled models" in out.reason
 
 
+def test_a_failed_compile_leaves_the_interpreter_running(monkeypatch, empty_disk_cache):
+    def broken(digest, source):
+        raise OSError("No space left on device")
+    monkeypatch.setattr(native, "_load", broken)
+    m = prepare(lorenz_variant(0.75, "failed compile test"))
+    out = native.build(m.kernel, 3)
+    assert not out.used and "compile failed (OSError)" in out.reason and out.kernel is m.kernel
+    sol = solve(m, 1.0, "auto", 1e-6, 1e-9)
+    assert sol.outcome == SUCCEEDED
+
+
 def test_auto_compiles_on_second_use_or_for_large_batches_and_never_means_never(empty_disk_cache):
     single = prepare(lorenz_variant(0.25, "policy test: single jobs"))
     batch = prepare(lorenz_variant(0.375, "policy test: batch"))
