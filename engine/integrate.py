@@ -155,9 +155,9 @@ class _Run:
             self.V[S.V_NNMASK] = o.nonnegative
         self.t_out = t_out
         self.ev_dir = (self.no_dir if o.event_directions is None
-                       else np.asarray(o.event_directions, dtype=np.int64))
+                       else _writeable(o.event_directions, np.int64))
         self.ev_term = (self.no_term if o.event_terminal is None
-                        else np.asarray(o.event_terminal, dtype=np.bool_))
+                        else _writeable(o.event_terminal, np.bool_))
         fs = self.fs
         fs[S.F_T] = fs[S.F_T0] = t0
         fs[S.F_TEND] = t1
@@ -249,6 +249,15 @@ def _plain(a) -> bool:
     (a read-only array is another type to numba and would compile the loop again)."""
     f = a.flags if type(a) is np.ndarray else None
     return f is not None and a.dtype == np.float64 and f.c_contiguous and f.writeable
+
+
+def _writeable(a, dtype) -> np.ndarray:
+    """``a`` as a writeable C-contiguous array of ``dtype``. A read-only array (a prepared
+    model's event flags are frozen) is another type to numba: passing one would make each
+    worker process load a second specialisation of the compiled loop on its first job
+    (about 0.1 s), one that the warm-up never touched."""
+    a = np.asarray(a, dtype=dtype)
+    return a if a.flags.writeable and a.flags.c_contiguous else np.array(a, dtype=dtype)
 
 
 def _carve(dtype, *shapes):

@@ -96,6 +96,8 @@ def test_a_stiff_run_shows_its_switches_phases_and_conservation_drift(browser, s
     assert "dopri5" in first and "stiffness_detected" in first
     assert page.is_visible("#drift .uplot") and page.is_visible("#stiff .uplot")
     assert "phase" in page.inner_text("#method-legend")
+    facts = page.inner_text("#run-facts")  # which evaluation tier ran, and why
+    assert "model evaluated by" in facts and ("machine code" in facts or "interpreter" in facts)
     page.click("[data-axis=tx] [data-v=log]")
     page.click("[data-axis=sx] [data-v=log]")
     browser.shot("job-stiff")

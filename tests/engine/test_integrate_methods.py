@@ -200,3 +200,19 @@ def test_a_counts_solution_is_freed_without_the_cycle_collector():
         assert ref() is None
     finally:
         gc.enable()
+
+
+def test_frozen_event_flags_reuse_the_compiled_loop_the_warm_up_loaded():
+    # A prepared model's arrays are read-only; integrate must hand the compiled loop the
+    # same array types as the warm-up does, or each worker process loads a second
+    # specialisation on its first job.
+    from engine import driver
+    spec = dict(K.VAN_DER_POL, events=[{"name": "x_zero", "when": "x", "direction": "falling"}])
+    m = K.model(spec)
+    assert not m.event_directions.flags.writeable
+    kinds = []
+    for dirs, term in ((m.event_directions.copy(), m.event_terminal.copy()),
+                       (m.event_directions, m.event_terminal)):
+        solve(m, 1.0, "auto", 1e-6, 1e-9, event_directions=dirs, event_terminal=term)
+        kinds.append(len(driver.advance.signatures))
+    assert kinds[0] == kinds[1]
