@@ -259,8 +259,8 @@ def _load(digest: str, source: str):
 
 
 def build(kernel: vm.Kernel, n_params: int, compile_new: bool = True) -> NativeBuild:
-    """The kernel with machine-code right-hand side and Jacobian, when this tier can
-    build them; otherwise the kernel unchanged and the reason.
+    """The kernel with machine-code right-hand side, Jacobian and event functions, when
+    this tier can build them; otherwise the kernel unchanged and the reason.
 
     ``compile_new=False`` only loads machine code this process holds or an earlier
     process left on disk (milliseconds), and never compiles (0.1-0.5 s per model).

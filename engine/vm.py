@@ -88,6 +88,8 @@ class Kernel(NamedTuple):
     # Addresses of machine-code versions of the right-hand side (mass-action part
     # included), the Jacobian values and the event functions (engine.native); 0: the
     # programs run here. Derived quantities (read at output times only) stay here.
+    # The addresses are valid in this process and its forked children only: a Kernel is
+    # never sent to another process (jobs cross the queue as JSON and are prepared there).
     native_rhs: int = 0
     native_jac: int = 0
     native_events: int = 0
