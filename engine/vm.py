@@ -4,8 +4,10 @@ A model's right-hand side, Jacobian values, intermediate quantities and event
 functions are each compiled (by ``engine.program``) into a *program*: a plain
 ``int32`` array of instructions over a ``float64`` register file. One numba
 function, compiled once and cached on disk, runs every program of every model,
-so a long-running worker never compiles per model (compiled code is never
-freed, and exec-built functions cannot be disk-cached).
+so any model runs at once, without a compile (compiled code is never freed, so a
+long-running worker cannot compile every model it sees). ``engine.native`` adds,
+for models evaluated many times and within its bounds, machine code that the
+compiled loops call through the Kernel's ``native_*`` addresses instead.
 
 Instruction layout: ``code[k] = (op, dst, a, b, c)``.
 
