@@ -16,7 +16,7 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from engine import bdf, driver, sparse, sparse_radau, state as S, vm
+from engine import bdf, driver, native, sparse, sparse_radau, state as S, vm
 from engine.report import aux_at_outputs, build_report
 from engine.switching import P_IMPLICIT, SwitchPolicy
 from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
@@ -60,6 +60,10 @@ class SolverOptions:
     max_events: int = 1000                         # event records kept
     diagnostics: str = "full"  # "full" (eigenvalues, history) or "counts" (lean)
     policy: SwitchPolicy = SwitchPolicy()
+    # "auto": a run still on the interpreter after TIER_UP_SECONDS (and after longer than
+    # its compile would take) continues on machine code (engine.native), with the same
+    # values; "never" (default here; jobs pass their own option): never mid-run
+    machine_code: str = "never"
 
 
 @dataclass
@@ -75,6 +79,9 @@ class Solution:
     event_index: np.ndarray = field(default_factory=lambda: np.zeros(0, dtype=np.int64))
     event_y: np.ndarray = field(default_factory=lambda: np.zeros((0, 0)))
     terminal_event: Optional[int] = None   # index of the event that stopped the run
+    # when the run moved to machine code mid-way (SolverOptions.machine_code="auto"):
+    # {"t": time reached then, "after_seconds": solve time before, "seconds": build time}
+    machine_code_from: Optional[dict] = None
     # JSON-safe diagnostics (sol.report); with diagnostics="counts" built on first read
     # from a snapshot of the run's counters: sweep members that never read it skip it
     _report: Optional[dict] = field(default=None, repr=False)
@@ -135,6 +142,7 @@ class _Run:
         self.code_seen = None
         self.has_time = 0
         self.key = None  # pool key (engine.integrate._pool_key)
+        self.tier_tried = False  # a mid-run move to machine code was attempted (_tier_up)
 
     def reset(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
         if not self.fresh:
@@ -274,6 +282,9 @@ def _carve(dtype, *shapes):
 def _check(kernel, y0, t0, t1, t_out, o):
     if o.method not in METHODS:
         raise ValueError(f"unknown method '{o.method}'; choose one of {', '.join(METHODS)}")
+    if o.machine_code not in native.MODES:
+        raise ValueError(f"unknown machine_code '{o.machine_code}'; choose one of "
+                         f"{', '.join(native.MODES)}")
     if not (np.isfinite(t0) and np.isfinite(t1) and t1 > t0):
         raise ValueError("t_span must be two finite times with t_end > t_start")
     if len(y0) != kernel.n:
@@ -318,18 +329,42 @@ def integrate(
                           run.V, run.gv, _ORDER[int(run.iw[S.I_METHOD])]):
         run.fs[S.F_T_BAD] = t0
         stop = NON_FINITE
-    else:
-        stop = _loop(kernel, run, monitor, o, secs, started)
+    tier_up = None
+    if stop is None:
+        stop, kernel, tier_up = _loop(kernel, run, monitor, o, secs, started)
     sol = _solution(kernel, run, stop, o, conservation, secs, started)
+    sol.machine_code_from = tier_up
     _give_back(kernel, run, o)
     return sol
 
 
+TIER_UP_SECONDS = 1.0  # interpreted solve time before SolverOptions.machine_code="auto" compiles
+
+
+def _tier_up(kernel, run, o, started, now):
+    """The kernel with machine code, and what happened, when a long interpreted run should
+    move to it now (values stay bit-identical); else (kernel, None)."""
+    if o.machine_code != "auto" or kernel.native_rhs != 0 or run.tier_tried:
+        return kernel, None
+    elapsed = now - started
+    if elapsed < TIER_UP_SECONDS or elapsed < native.compile_estimate(kernel):
+        return kernel, None
+    run.tier_tried = True
+    built = native.build(kernel, len(run.p))
+    if not built.used:
+        return kernel, None
+    return built.kernel, {"t": float(run.fs[S.F_T]), "after_seconds": elapsed,
+                          "seconds": built.seconds}
+
+
 def _loop(kernel, run, monitor, o, secs, started):
+    """Advance in chunks until the run ends; returns (stop, kernel, tier-up record)."""
     budget = 4 if run.sparse else 2000
     last_beat = started
     iw, fs = run.iw, run.fs
     t0, t1 = fs[S.F_T0], fs[S.F_TEND]
+    run.tier_tried = False
+    tiered = None
     while True:
         method = int(iw[S.I_METHOD])
         before = time.perf_counter()
@@ -337,18 +372,22 @@ def _loop(kernel, run, monitor, o, secs, started):
         now = time.perf_counter()
         secs[method] += now - before
         if iw[S.I_STATUS] != S.RUNNING:
-            return None
+            return None, kernel, tiered
+        kernel, record = _tier_up(kernel, run, o, started, now)
+        if record is not None:
+            tiered = record
+            now = time.perf_counter()
         chunk = now - before
         if chunk < 0.05:
             budget = min(budget * 2, 1 << 30)
         elif chunk > 0.2:
             budget = max(budget // 2, 1)
         if now - started > o.max_wall_seconds:
-            return TIME_LIMIT
+            return TIME_LIMIT, kernel, tiered
         if monitor is not None and now - last_beat >= 0.5:
             last_beat = now
             if monitor((fs[S.F_T] - t0) / (t1 - t0)):
-                return CANCELLED
+                return CANCELLED, kernel, tiered
 
 
 def _message(outcome, run, o, kernel):

@@ -328,7 +328,8 @@ def choose(prepared, mode: str = AUTO, solves: int = 1):
     (milliseconds); it compiles new machine code for a batch of at least
     :data:`BATCH_MIN_MEMBERS` members (``solves``), and for a model this process was
     asked for before when the compile is quick (:data:`REPEAT_MAX_SECONDS`); so a
-    one-off job does not wait for a compile its own solve would not repay. ``always``
+    one-off job does not wait for a compile its own solve would not repay (a long one
+    moves to machine code mid-run instead: ``engine.integrate._tier_up``). ``always``
     compiles whenever the tier can; ``never`` keeps the interpreter.
     """
     if mode == NEVER:

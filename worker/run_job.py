@@ -102,6 +102,11 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         log.error("job %s crashed in the engine:\n%s", job_id, traceback.format_exc())
         return "failed", "internal_error", f"internal error while solving ({type(e).__name__}: {e})", {}, None
     state = {SUCCEEDED: "succeeded", CANCELLED: "cancelled"}.get(sol.outcome, "failed")
+    if sol.machine_code_from is not None:  # a long run moved to machine code mid-way
+        m = sol.machine_code_from
+        machine_code = {"used": True, "seconds": round(m["seconds"], 6),
+                        "reason": f"compiled after {m['after_seconds']:.1f} s on the interpreter; "
+                                  f"machine code from t={m['t']:.6g} on"}
     sol.report["machine_code"] = machine_code
     summary = result_blob.json_safe(digest(sol.report, prepare_seconds) | {"t_reached": sol.t_reached})
     events = [{"name": prepared.event_names[int(i)], "t": float(t), "states": dict(zip(prepared.state_names, y))}

@@ -109,6 +109,22 @@ def test_a_job_asking_for_machine_code_gets_it_and_the_same_answer(stack):
     assert r.status_code == 422 and "machine_code" in r.text
 
 
+def test_a_long_job_moves_to_machine_code_midway(stack):
+    # about 2.5 s on the interpreter: past engine.integrate.TIER_UP_SECONDS (1 s); the
+    # first calibration call also loads compiled code, so the second one is the measure
+    oscillator_span(1.0)
+    spec = dict(LONG, span=[0.0, oscillator_span(2.5)], machine_code="auto",
+                label="long oscillator, tier-up (e2e)",
+                model=dict(LONG["model"], title="long oscillator (tier-up e2e)"))
+    view = stack.wait(stack.submit(spec), timeout=120)
+    assert view["state"] == "succeeded", view
+    mc = view["digest"]["machine_code"]
+    assert mc["used"] is True and "compiled after" in mc["reason"], mc
+    result = requests.get(f"{stack.base}/v1/jobs/{view['id']}/result", timeout=10).json()
+    t_end = result["times"][-1]  # exact solution u = cos t
+    assert abs(result["states"]["u"][-1] - np.cos(t_end)) < 1e-6
+
+
 def test_a_bad_spec_is_refused_and_never_queued(stack):
     before = requests.get(f"{stack.base}/v1/jobs?limit=200", timeout=10).json()["items"]
     spec = linear_spec()

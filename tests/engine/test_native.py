@@ -221,3 +221,27 @@ def test_events_run_as_machine_code_and_are_located_as_before():
     assert same(runs[0].event_t, runs[1].event_t)
     assert np.allclose(runs[1].event_t, [np.log(2) / 1.5, 2 * np.log(2) / 1.5], rtol=1e-7)
     assert runs[1].terminal_event == 1
+
+
+def test_a_long_interpreted_run_moves_to_machine_code_midway_with_the_same_values(
+        monkeypatch, empty_disk_cache):
+    from engine import integrate as I
+    monkeypatch.setattr(I, "TIER_UP_SECONDS", 0.0)  # move at the first chunk boundary
+    monkeypatch.setattr(native, "compile_estimate", lambda kernel: 0.0)
+    # harmonic oscillator over ~300 periods: many chunks of 2,000+ steps (exact: cos t)
+    spec = {"title": "oscillator (tier-up test)", "states": {"u": 1.0, "v": 0.0},
+            "parameters": {"w": 1.0}, "ddt": {"u": "w*v", "v": "-w*u + 0.0"}}
+    m = prepare(spec)
+    runs = [solve(m, 2000.0, "dopri5", 1e-10, 1e-12, machine_code=mode)
+            for mode in ("never", "auto")]
+    assert runs[0].machine_code_from is None
+    moved = runs[1].machine_code_from
+    assert moved is not None and 0.0 < moved["t"] < 2000.0
+    assert same(runs[0].y, runs[1].y)  # bit-identical: only the evaluation tier changed
+    assert abs(runs[1].y[-1][0] - np.cos(2000.0)) < 1e-5
+
+
+def test_unknown_machine_code_option_is_refused():
+    m = prepare(K.LORENZ)
+    with pytest.raises(ValueError, match="machine_code"):
+        solve(m, 1.0, "auto", 1e-6, 1e-9, machine_code="sometimes")
