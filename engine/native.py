@@ -45,23 +45,40 @@ log = logging.getLogger(__name__)
 MAX_ROWS = 1500        # per program; beyond this the interpreter runs it
 MAX_PER_PROCESS = 64   # kernels compiled (or loaded) by one process: ~1.5 MB each
 
-_BINARY = {vm.ADD: "+", vm.SUB: "-", vm.MUL: "*", vm.DIV: "/"}
-_COMPARE = {vm.LT: "<", vm.LE: "<=", vm.GT: ">", vm.GE: ">=", vm.EQ: "==", vm.NE: "!="}
-_UNARY = {  # op -> expression template over x (same spelling as engine.vm.run)
-    vm.NEG: "-{x}",
-    vm.SQUARE: "{x} * {x}",
-    vm.EXP: "math.exp(min({x}, 709.0))",
-    vm.LOG: "_log({x})",
-    vm.LOG10: "(math.log10({x}) if {x} > 0.0 else (-math.inf if {x} == 0.0 else math.nan))",
-    vm.SQRT: "(math.sqrt({x}) if {x} >= 0.0 else math.nan)",
-    vm.SIN: "math.sin({x})", vm.COS: "math.cos({x})", vm.TAN: "math.tan({x})",
-    vm.SINH: "math.sinh(min(max({x}, -709.0), 709.0))",
-    vm.COSH: "math.cosh(min(max({x}, -709.0), 709.0))",
-    vm.TANH: "math.tanh({x})", vm.ABS: "abs({x})",
-    vm.SIGN: "(1.0 if {x} > 0.0 else (-1.0 if {x} < 0.0 else 0.0))",
-    vm.STEP: "(1.0 if {x} >= 0.0 else 0.0)",
-    vm.NOT: "(1.0 if {x} == 0.0 else 0.0)",
-    vm.MOVE: "{x}",
+# One line of Python per instruction, spelled as engine.vm.run computes it. Fields:
+# {d} {a} {b} {e}: registers named by the row's fields; {ca} {cb}: constants indexed by
+# fields a and b; {ia} {ib} {id}: fields a, b and dst as plain integers; {out}: the output.
+_LINES = {
+    vm.ADD: "{d} = {a} + {b}", vm.SUB: "{d} = {a} - {b}",
+    vm.MUL: "{d} = {a} * {b}", vm.DIV: "{d} = {a} / {b}",
+    vm.OUT: "{out}[{id}] = {a}", vm.OUTC: "{out}[{id}] = {ca}",
+    vm.STATE: "{d} = y[{ia}]", vm.PARAM: "{d} = p[{ia}]", vm.CONST: "{d} = {ca}",
+    vm.TIME: "{d} = t",
+    vm.MULADD: "{d} = {a} * {b} + {e}",
+    vm.MULC: "{d} = {a} * {cb}", vm.MULP: "{d} = {a} * p[{ib}]",
+    vm.MULADDC: "{d} = {a} * {cb} + {e}", vm.MULADDP: "{d} = {a} * p[{ib}] + {e}",
+    vm.POWI: "{d} = _powi({a}, {ib})", vm.POW: "{d} = _pow({a}, {b})",
+    vm.NEG: "{d} = -{a}",
+    vm.SQUARE: "{d} = {a} * {a}",
+    vm.EXP: "{d} = math.exp(min({a}, 709.0))",
+    vm.LOG: "{d} = _log({a})",
+    vm.LOG10: "{d} = math.log10({a}) if {a} > 0.0 else (-math.inf if {a} == 0.0 else math.nan)",
+    vm.SQRT: "{d} = math.sqrt({a}) if {a} >= 0.0 else math.nan",
+    vm.SIN: "{d} = math.sin({a})", vm.COS: "{d} = math.cos({a})", vm.TAN: "{d} = math.tan({a})",
+    vm.SINH: "{d} = math.sinh(min(max({a}, -709.0), 709.0))",
+    vm.COSH: "{d} = math.cosh(min(max({a}, -709.0), 709.0))",
+    vm.TANH: "{d} = math.tanh({a})", vm.ABS: "{d} = abs({a})",
+    vm.SIGN: "{d} = 1.0 if {a} > 0.0 else (-1.0 if {a} < 0.0 else 0.0)",
+    vm.STEP: "{d} = 1.0 if {a} >= 0.0 else 0.0",
+    vm.NOT: "{d} = 1.0 if {a} == 0.0 else 0.0",
+    vm.MOVE: "{d} = {a}",
+    vm.MIN: "{d} = min({a}, {b})", vm.MAX: "{d} = max({a}, {b})",
+    vm.LT: "{d} = 1.0 if {a} < {b} else 0.0", vm.LE: "{d} = 1.0 if {a} <= {b} else 0.0",
+    vm.GT: "{d} = 1.0 if {a} > {b} else 0.0", vm.GE: "{d} = 1.0 if {a} >= {b} else 0.0",
+    vm.EQ: "{d} = 1.0 if {a} == {b} else 0.0", vm.NE: "{d} = 1.0 if {a} != {b} else 0.0",
+    vm.AND: "{d} = 1.0 if ({a} != 0.0 and {b} != 0.0) else 0.0",
+    vm.OR: "{d} = 1.0 if ({a} != 0.0 or {b} != 0.0) else 0.0",
+    vm.SELECT: "{d} = {b} if {a} != 0.0 else {e}",
 }
 
 
@@ -102,50 +119,18 @@ def _program_lines(code: np.ndarray, consts: np.ndarray, out_name: str) -> list[
         k0 = 1
     for row in code[k0:]:
         op, d, a, b, e = (int(v) for v in row)
-        if op in _BINARY:
-            lines.append(f"{r(d)} = {r(a)} {_BINARY[op]} {r(b)}")
-        elif op == vm.OUT:
-            lines.append(f"{out_name}[{d}] = {r(a)}")
-        elif op == vm.OUTC:
-            lines.append(f"{out_name}[{d}] = {c[a]}")
-        elif op == vm.STATE:
-            lines.append(f"{r(d)} = y[{a}]")
-        elif op == vm.PARAM:
-            lines.append(f"{r(d)} = p[{a}]")
-        elif op == vm.CONST:
-            lines.append(f"{r(d)} = {c[a]}")
-        elif op == vm.TIME:
-            lines.append(f"{r(d)} = t")
-        elif op == vm.MULADD:
-            lines.append(f"{r(d)} = {r(a)} * {r(b)} + {r(e)}")
-        elif op == vm.MULC:
-            lines.append(f"{r(d)} = {r(a)} * {c[b]}")
-        elif op == vm.MULP:
-            lines.append(f"{r(d)} = {r(a)} * p[{b}]")
-        elif op == vm.MULADDC:
-            lines.append(f"{r(d)} = {r(a)} * {c[b]} + {r(e)}")
-        elif op == vm.MULADDP:
-            lines.append(f"{r(d)} = {r(a)} * p[{b}] + {r(e)}")
-        elif op == vm.POWI:
-            lines.append(f"{r(d)} = _powi({r(a)}, {b})")
-        elif op == vm.POW:
-            lines.append(f"{r(d)} = _pow({r(a)}, {r(b)})")
-        elif op in _UNARY:
-            lines.append(f"{r(d)} = " + _UNARY[op].format(x=r(a)))
-        elif op in _COMPARE:
-            lines.append(f"{r(d)} = 1.0 if {r(a)} {_COMPARE[op]} {r(b)} else 0.0")
-        elif op == vm.MIN:
-            lines.append(f"{r(d)} = min({r(a)}, {r(b)})")
-        elif op == vm.MAX:
-            lines.append(f"{r(d)} = max({r(a)}, {r(b)})")
-        elif op == vm.AND:
-            lines.append(f"{r(d)} = 1.0 if ({r(a)} != 0.0 and {r(b)} != 0.0) else 0.0")
-        elif op == vm.OR:
-            lines.append(f"{r(d)} = 1.0 if ({r(a)} != 0.0 or {r(b)} != 0.0) else 0.0")
-        elif op == vm.SELECT:
-            lines.append(f"{r(d)} = {r(b)} if {r(a)} != 0.0 else {r(e)}")
-        else:
+        template = _LINES.get(op)
+        if template is None:
             raise Untranslatable(f"opcode {op}")
+        # constants are looked up only where the template reads them (a field that is a
+        # register elsewhere may lie outside the constant table)
+        fields = {"d": r(d), "a": r(a), "b": r(b), "e": r(e), "ia": a, "ib": b, "id": d,
+                  "out": out_name}
+        if "{ca}" in template:
+            fields["ca"] = c[a]
+        if "{cb}" in template:
+            fields["cb"] = c[b]
+        lines.append(template.format(**fields))
     return lines
 
 
