@@ -50,6 +50,16 @@ def method_phases(rep: dict) -> list[list]:
     return rows
 
 
+def _tier(mc: dict | None) -> str | None:
+    """How the worker evaluated the model (engine.native), in words."""
+    if not mc:
+        return None
+    if mc.get("used"):
+        why = f"; {mc['reason']}" if mc.get("reason") else ""
+        return f"machine code ({_num(mc.get('seconds'))} s to build or load{why})"
+    return f"interpreter ({mc.get('reason', '')})"
+
+
 def format_report(result: dict) -> str:
     """The stiffness report of a result JSON as readable text."""
     rep = result.get("report") or {}
@@ -63,7 +73,8 @@ def format_report(result: dict) -> str:
                 ("method switches", rep.get("switch_count")),
                 ("explicit steps needed (estimate)", rep.get("explicit_steps_needed")),
                 ("conservation drift (max, relative)", rep.get("conservation_drift")),
-                ("t reached", rep.get("t_reached")), ("solver seconds", rep.get("solve_seconds"))]
+                ("t reached", rep.get("t_reached")), ("solver seconds", rep.get("solve_seconds")),
+                ("model evaluated by", _tier(rep.get("machine_code")))]
     parts.append("\nWork\n" + table([[k, v] for k, v in counters]))
     per, secs = rep.get("steps_per_method") or {}, rep.get("seconds_per_method") or {}
     if per:

@@ -41,7 +41,7 @@ def job_spec(model, span, *, output: dict | None = None, count: int | None = Non
              spacing: str | None = None, times=None, rtol: float | None = None, atol=None,
              method: str | None = None, label: str | None = None, parameters: dict | None = None,
              initial: dict | None = None, nonnegative: bool | None = None,
-             limits: dict | None = None) -> dict:
+             limits: dict | None = None, machine_code: str | None = None) -> dict:
     """Build a job spec; unset options take the server's defaults."""
     spec: dict = {"model": model.to_dict() if isinstance(model, Model) else dict(model),
                   "span": [float(span[0]), float(span[1])]}
@@ -55,7 +55,8 @@ def job_spec(model, span, *, output: dict | None = None, count: int | None = Non
     if tol:
         spec["tolerance"] = tol
     for key, value in (("method", method), ("label", label), ("parameters", parameters),
-                       ("initial", initial), ("nonnegative", nonnegative), ("limits", limits)):
+                       ("initial", initial), ("nonnegative", nonnegative), ("limits", limits),
+                       ("machine_code", machine_code)):
         if value is not None:
             spec[key] = value
     return spec

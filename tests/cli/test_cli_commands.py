@@ -70,8 +70,11 @@ def test_the_report_reads_as_tables():
         "switches": [{"t": 0.5, "from": "dopri5", "to": "radau5", "h": 1e-3, "rho": 3.2e4,
                       "explicit_step": 1.0e-4, "reason": "stiffness_detected"}]}}
     result["report"]["t_reached"] = 10.0
+    result["report"]["machine_code"] = {"used": False, "seconds": 0.0,
+                                        "reason": "the job asked for the interpreter"}
     text = format_report(result)
     assert "accepted steps" in text and "120" in text
+    assert "interpreter (the job asked for the interpreter)" in text
     assert "Method phases" in text and text.index("dopri5", text.index("Method phases")) < text.index("radau5", text.index("Method phases"))
     assert "Method switches" in text and "stiffness_detected" in text
     lines = text.splitlines()
