@@ -142,7 +142,6 @@ class _Run:
         self.code_seen = None
         self.has_time = 0
         self.key = None  # pool key (engine.integrate._pool_key)
-        self.tier_tried = False  # a mid-run move to machine code was attempted (_tier_up)
 
     def reset(self, kernel, p, y0, t0, t1, t_out, o: SolverOptions):
         if not self.fresh:
@@ -341,15 +340,9 @@ def integrate(
 TIER_UP_SECONDS = 1.0  # interpreted solve time before SolverOptions.machine_code="auto" compiles
 
 
-def _tier_up(kernel, run, o, started, now):
-    """The kernel with machine code, and what happened, when a long interpreted run should
-    move to it now (values stay bit-identical); else (kernel, None)."""
-    if o.machine_code != "auto" or kernel.native_rhs != 0 or run.tier_tried:
-        return kernel, None
-    elapsed = now - started
-    if elapsed < TIER_UP_SECONDS or elapsed < native.compile_estimate(kernel):
-        return kernel, None
-    run.tier_tried = True
+def _tier_up(kernel, run, elapsed):
+    """Move a long interpreted run to machine code (values stay bit-identical): the new
+    kernel and what happened, or (kernel, None) when it cannot be built."""
     built = native.build(kernel, len(run.p))
     if not built.used:
         return kernel, None
@@ -363,7 +356,7 @@ def _loop(kernel, run, monitor, o, secs, started):
     last_beat = started
     iw, fs = run.iw, run.fs
     t0, t1 = fs[S.F_T0], fs[S.F_TEND]
-    run.tier_tried = False
+    may_tier_up = o.machine_code == "auto" and kernel.native_rhs == 0
     tiered = None
     while True:
         method = int(iw[S.I_METHOD])
@@ -373,15 +366,16 @@ def _loop(kernel, run, monitor, o, secs, started):
         secs[method] += now - before
         if iw[S.I_STATUS] != S.RUNNING:
             return None, kernel, tiered
-        kernel, record = _tier_up(kernel, run, o, started, now)
-        if record is not None:
-            tiered = record
-            now = time.perf_counter()
         chunk = now - before
         if chunk < 0.05:
             budget = min(budget * 2, 1 << 30)
         elif chunk > 0.2:
             budget = max(budget // 2, 1)
+        # a long run moves once, after it has cost more than the compile will
+        if may_tier_up and now - started >= max(TIER_UP_SECONDS, native.compile_estimate(kernel)):
+            may_tier_up = False
+            kernel, tiered = _tier_up(kernel, run, now - started)
+            now = time.perf_counter()
         if now - started > o.max_wall_seconds:
             return TIME_LIMIT, kernel, tiered
         if monitor is not None and now - last_beat >= 0.5:

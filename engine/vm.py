@@ -345,10 +345,7 @@ def jac_values(kernel, t, y, p, regs, vals):
 @njit(cache=True, nogil=True, _nrt=False)
 def jac_dense(kernel, t, y, p, regs, vals, J):
     """Dense Jacobian into ``J`` (n x n), via the sparse values."""
-    if kernel.native_jac != 0:
-        call_native(kernel.native_jac, t, y, p, vals)
-    else:
-        run(kernel.jac_code, kernel.consts, t, y, p, regs, vals)
+    jac_values(kernel, t, y, p, regs, vals)
     J[:, :] = 0.0
     for k in range(vals.shape[0]):
         J[kernel.jac_rows[k], kernel.jac_cols[k]] = vals[k]
