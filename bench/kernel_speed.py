@@ -163,7 +163,7 @@ def main():
                  per_call(lambda r: _loop_parts(k, y, rob.p, regs, out, r), 5000),
                  per_call(lambda r: _loop_robertson(y, out, r), 5000),
                  per_call(lambda r: [numpy_robertson(y) for _ in range(r)], 500, 10)))
-    for name in ("hires", "vanderpol", "lakeside_hydrogenation"):
+    for name in ("hires", "vanderpol", "tarnwhistle_hydrogenation"):
         pm = prepare(json.loads((ROOT / f"examples/models/{name}.json").read_text()))
         k, yv = pm.kernel, pm.y0 + 0.1
         regs, out = np.zeros(k.n_regs), np.zeros(k.n)

@@ -53,7 +53,7 @@ def engine_run(method: str):
     def run(problem: Problem, rtol: float, cap: float) -> dict:
         from engine.integrate import SolverOptions, integrate
         pm = prepare_problem(problem)
-        if method != "dopri5" and problem.n > DENSE_LIMIT and not _engine_sparse(pm.kernel):
+        if method != "dormand_prince_54" and problem.n > DENSE_LIMIT and not _engine_sparse(pm.kernel):
             return _too_big(problem, f"engine/{method}")
         opts = SolverOptions(method=method, rtol=rtol, atol=problem.atol(rtol),
                              max_wall_seconds=cap, diagnostics="counts",

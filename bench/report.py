@@ -76,7 +76,7 @@ def ratios(result: dict) -> list[dict]:
         for m in ("Radau", "BDF"):
             add(f"auto >= 200x solve_ivp/{m}", prob, "engine/auto", f"solve_ivp/{m}", 200.0, True)
     for prob in NON_STIFF:
-        add("auto within 1.3x of dopri5", prob, "engine/auto", "engine/dopri5", 1.3, False)
+        add("auto within 1.3x of dormand_prince_54", prob, "engine/auto", "engine/dormand_prince_54", 1.3, False)
     add("auto <= 0.5x CVODE time", "brusselator32", "engine/auto", "cvode+numba", 0.5, False)
     sw = result.get("sweep")
     if sw:

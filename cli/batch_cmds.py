@@ -6,7 +6,7 @@ import sys
 from pathlib import Path
 
 from cli.common import (JOB_NOT_SUCCEEDED, OK, add_connection_args, client_module, command,
-                        make_client)
+                        make_client, print_caution)
 from cli.report import table
 
 
@@ -24,6 +24,7 @@ def _end(client, view: dict, out: str | None, fmt: str | None) -> int:
         fmt = fmt or Path(out).suffix.lstrip(".").lower() or "csv"
         Path(out).write_bytes(client.batch_table_bytes(view["id"], fmt))
         print(f"table saved to {out}", file=sys.stderr)
+        print_caution()
     return OK if view["state"] == "succeeded" else JOB_NOT_SUCCEEDED
 
 
@@ -56,6 +57,7 @@ def cmd_table(args) -> int:
     else:
         sys.stdout.buffer.write(data)
         sys.stdout.flush()
+    print_caution()
     return OK
 
 
@@ -69,6 +71,7 @@ def cmd_stats(args) -> int:
     rows = [[name, s.get("count"), s.get("mean"), s.get("std"), s.get("min"), s.get("q05"), s.get("q50"),
              s.get("q95"), s.get("max")] for name, s in (stats.get("summaries") or {}).items()]
     print(table(rows, ["summary", "n", "mean", "std", "min", "5%", "median", "95%", "max"]))
+    print_caution()
     return OK
 
 

@@ -23,6 +23,11 @@ EXIT_CODES_HELP = """exit codes: 0 success, 1 job failed or cancelled, 2 bad arg
 130 interrupted"""
 
 
+def print_caution() -> None:
+    """The caution on stderr, set apart, after every command that hands out numbers."""
+    print("\ncaution: " + client_module().CAUTION, file=sys.stderr)
+
+
 def client_module():
     """The client package; from the source tree when it is not installed."""
     try:

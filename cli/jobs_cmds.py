@@ -5,7 +5,7 @@ import json
 import sys
 from pathlib import Path
 
-from cli.common import JOB_NOT_SUCCEEDED, OK, add_connection_args, command, make_client
+from cli.common import JOB_NOT_SUCCEEDED, OK, add_connection_args, command, make_client, print_caution
 
 
 def _print_view(view: dict) -> None:
@@ -23,6 +23,7 @@ def _finish(client, view: dict, out: str | None, fmt: str | None) -> int:
     if out:
         path = client.download(view["id"], out, fmt)
         print(f"result saved to {path}", file=sys.stderr)
+        print_caution()
     return OK
 
 
@@ -60,6 +61,7 @@ def cmd_result(args) -> int:
     if args.out:
         path = client.download(args.job_id, args.out, args.format)
         print(f"result saved to {path}", file=sys.stderr)
+        print_caution()
         return OK
     fmt = args.format or "csv"
     data = client.result_bytes(args.job_id, fmt)
@@ -68,6 +70,7 @@ def cmd_result(args) -> int:
         return 2
     sys.stdout.buffer.write(data)
     sys.stdout.flush()
+    print_caution()
     return OK
 
 
@@ -104,8 +107,8 @@ def register(sub) -> None:
     p.add_argument("--timeout", type=float, help="give up waiting after this many seconds")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
     add_connection_args(p)
-    command(p, cmd_submit, """  stifflane submit examples/jobs/lakeside_demo.json
-  stifflane submit examples/jobs/lakeside_demo.json --wait -o demo.csv
+    command(p, cmd_submit, """  stifflane submit examples/jobs/tarnwhistle_demo.json
+  stifflane submit examples/jobs/tarnwhistle_demo.json --wait -o demo.csv
   stifflane --server http://lab-host:8750 submit spec.json   (or: STIFFLANE_URL=... stifflane submit spec.json)""")
 
     p = sub.add_parser("watch", help="follow a job with a progress bar until it ends",

@@ -38,7 +38,7 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parent.parent
 DEFAULT_API_PORT = 8750
 DEFAULT_REDIS_PORT = 6390
-DEMO_JOB = ROOT / "examples" / "jobs" / "lakeside_demo.json"
+DEMO_JOB = ROOT / "examples" / "jobs" / "tarnwhistle_demo.json"
 
 
 def _env(redis_url: str | None = None) -> dict:
@@ -171,7 +171,7 @@ def submit_demo(base: str, key: str | None) -> None:
     with urllib.request.urlopen(req, timeout=10) as resp:
         job = json.load(resp)
     job_url = base + job["links"]["self"]
-    print(f"demo job submitted (invented Lakeside Lab scenario): {job_url}")
+    print(f"demo job submitted (invented scenario of the fictional Tarnwhistle Lab): {job_url}")
     deadline = time.time() + 120
     while time.time() < deadline:
         with urllib.request.urlopen(urllib.request.Request(job_url, headers=auth), timeout=10) as resp:

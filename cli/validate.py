@@ -62,5 +62,5 @@ def register(sub) -> None:
                        description="Check a job spec with the same schema and model checks the server "
                                    "uses, in this process; nothing is submitted.")
     p.add_argument("spec", help="path of a job spec JSON file, or - to read stdin")
-    command(p, cmd_validate, """  stifflane validate examples/jobs/lakeside_demo.json
+    command(p, cmd_validate, """  stifflane validate examples/jobs/tarnwhistle_demo.json
   cat spec.json | stifflane validate -""")

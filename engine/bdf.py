@@ -18,7 +18,7 @@ rate remembered across steps, so most steps take one iteration. Steps grow by
 at least GROWTH_MIN; repeated error-test failures drop the order.
 
 Chosen for the sparse path by measurement: on the 2-D Brusselator (2048
-states) it needs far fewer factorisations than Rodas4. The step loop is
+states) it needs far fewer factorisations than Rosenbrock 4(3). The step loop is
 Python; vector work, the interpolant, outputs and events are compiled (the
 latter shared with the dense path).
 """

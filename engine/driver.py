@@ -11,7 +11,7 @@ also returns right after a method switch when ``iw[I_SWITCH_RETURNS]`` asks for 
 import numpy as np
 from numba import njit
 
-from engine import dopri5, radau5, rodas, switching, vm
+from engine import dormand_prince_54, radau_iia_5, rosenbrock_4, switching, vm
 from engine.errors_norm import initial_step
 from engine.linalg import copy
 from engine.events import dense_eval, scan
@@ -22,14 +22,14 @@ from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ER
                           I_HIST_STRIDE, I_IOUT, I_JAC_CURRENT, I_LAST_REJECTED, I_LU_VALID,
                           I_MAX_STEPS, I_METHOD, I_NEV_LOG, I_NFEV, I_NJEV, I_NONNEG,
                           I_NSWITCH, I_PINNED, I_REJECTED, I_RETURN, I_STATUS,
-                          I_SWITCH_RETURNS, I_STEPS_DOPRI5, I_STEPS_IN_METHOD, I_STIFF_POS,
+                          I_SWITCH_RETURNS, I_STEPS_DORMAND_PRINCE, I_STEPS_IN_METHOD, I_STIFF_POS,
                           I_TERMINAL, RUNNING,
                           ST_NEWTON_FAILURE, ST_NON_FINITE, ST_STEP_LIMIT, ST_STEP_UNDERFLOW,
                           V_ERR, V_F0, V_K, V_NNMASK, V_PV, V_PW, V_YEV, V_YNEW, V_YTMP)
-from engine.steps import new_jacobian, nonneg_check, try_dopri5, try_radau5, try_rodas
+from engine.steps import new_jacobian, nonneg_check, try_dormand_prince_54, try_radau_iia_5, try_rosenbrock_4
 from engine.switching import (P_BOUNDARY, P_POWER_ITERS, P_UNSTABLE,
                               REASON_EXPLICIT_CHEAPER, REASON_STIFF, REASON_UNSTABLE)
-from engine.tableaux import DOPRI5, RADAU5, RODAS
+from engine.tableaux import DORMAND_PRINCE, RADAU_IIA, ROSENBROCK
 
 EPS = 2.220446049250313e-16
 JAC_CHECK_EVERY = 20  # auto mode: accepted explicit steps between Jacobian checks
@@ -99,12 +99,12 @@ def _dense_any(method, cont, t_old, h, t, out):
 @njit(cache=True, nogil=True, _nrt=False)
 def _dense(method, cont, t_old, h, t, out):
     """State at time t from the interpolant of the step (t_old, t_old + h)."""
-    if method == DOPRI5:
-        dopri5.dense(cont, (t - t_old) / h, out)
-    elif method == RADAU5:
-        radau5.dense(cont, (t - t_old) / h, out)
-    elif method == RODAS:
-        rodas.dense(cont, (t - t_old) / h, out)
+    if method == DORMAND_PRINCE:
+        dormand_prince_54.dense(cont, (t - t_old) / h, out)
+    elif method == RADAU_IIA:
+        radau_iia_5.dense(cont, (t - t_old) / h, out)
+    elif method == ROSENBROCK:
+        rosenbrock_4.dense(cont, (t - t_old) / h, out)
     else:
         _dense_any(method, cont, t_old, h, t, out)
 
@@ -120,10 +120,10 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
     t_new = t_old + h
     ynew = V[V_YNEW]
     m = t_out.shape[0]
-    if method == DOPRI5 and (gv.shape[1] > 0 or (iw[I_IOUT] < m and t_out[iw[I_IOUT]] < t_new)):
+    if method == DORMAND_PRINCE and (gv.shape[1] > 0 or (iw[I_IOUT] < m and t_out[iw[I_IOUT]] < t_new)):
         # Dormand-Prince's interpolant (five rows from the stages) only for steps that
         # hold an output time or may hold an event: most explicit steps need none
-        dopri5.prepare_dense(y, ynew, h, V[V_K:V_K + 7], cont)
+        dormand_prince_54.prepare_dense(y, ynew, h, V[V_K:V_K + 7], cont)
     if iw[I_NONNEG] and nonneg_check(ynew, y, atol, fs[F_RTOL], V[V_NNMASK]) == 1:
         for i in range(y.shape[0]):
             if ynew[i] < 0.0 and V[V_NNMASK, i] != 0.0:
@@ -146,7 +146,7 @@ def _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv, ev
         k += 1
     iw[I_IOUT] = k
     iw[I_ACCEPTED] += 1
-    iw[I_STEPS_DOPRI5 + method] += 1
+    iw[I_STEPS_DORMAND_PRINCE + method] += 1
     iw[I_STEPS_IN_METHOD] += 1
     iw[I_LAST_REJECTED] = 0
     iw[I_FIRST] = 0
@@ -198,7 +198,7 @@ def _switch(fs, iw, swlog, to, reason):
     iw[I_LU_VALID] = 0
     iw[I_JAC_CURRENT] = -1
     fs[F_RHO_J] = 0.0
-    fs[F_ERR_OLD] = 1e-4 if to == DOPRI5 else 0.0
+    fs[F_ERR_OLD] = 1e-4 if to == DORMAND_PRINCE else 0.0
     fs[F_H_OLD] = 0.0
     iw[I_RETURN] = iw[I_SWITCH_RETURNS]
 
@@ -210,7 +210,7 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
     method = iw[I_METHOD]
     t = fs[F_T]
     f0 = V[V_F0]
-    if method == DOPRI5:
+    if method == DORMAND_PRINCE:
         if iw[I_NONNEG]:
             vm.rhs(kernel, t, y, p, regs, f0)  # state may have been clipped
             iw[I_NFEV] += 1
@@ -225,7 +225,7 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
     if iw[I_PINNED] >= 0:
         return
     counters = iw[I_STIFF_POS:I_STIFF_POS + 2]
-    if method == DOPRI5 and jv.shape[0] > 0 and J.shape[0] == y.shape[0] \
+    if method == DORMAND_PRINCE and jv.shape[0] > 0 and J.shape[0] == y.shape[0] \
             and (iw[I_STEPS_IN_METHOD] % JAC_CHECK_EVERY == 1
                  or fs[F_H_LAST] > 2.0 * fs[F_H_JCHECK]):
         # The stage estimate of rho sees a fast mode only once it has grown
@@ -236,7 +236,7 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
         fs[F_H_JCHECK] = fs[F_H_LAST]
         fs[F_RHO_J] = switching.spectral_radius(J, V[V_PV], V[V_PW],
                                                 int(pol[P_POWER_ITERS]))
-    if method == DOPRI5:
+    if method == DORMAND_PRINCE:
         if switching.explicit_says_stiff(pol, counters, fs[F_H_LAST], fs[F_RHO],
                                          iw[I_STEPS_IN_METHOD]):
             _switch(fs, iw, swlog, switching.implicit_choice(pol, fs[F_RTOL]),
@@ -244,7 +244,7 @@ def _after(kernel, p, regs, y, fs, iw, V, J, jv, pol, swlog):
     else:
         if switching.implicit_says_nonstiff(pol, counters, fs[F_H_LAST], fs[F_RHO],
                                             iw[I_STEPS_IN_METHOD]):
-            _switch(fs, iw, swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
+            _switch(fs, iw, swlog, DORMAND_PRINCE, REASON_EXPLICIT_CHEAPER)
             fs[F_H] = min(fs[F_H], 0.5 * fs[F_HEXP])
             copy(f0, V[V_K])  # first-same-as-last stage of the explicit method
 
@@ -289,8 +289,8 @@ def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc,
             break
         steps += 1
         method = iw[I_METHOD]
-        if method == DOPRI5:
-            ok = try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h)
+        if method == DORMAND_PRINCE:
+            ok = try_dormand_prince_54(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h)
             if iw[I_PINNED] < 0 and h * fs[F_RATE] > pol[P_UNSTABLE] * pol[P_BOUNDARY] \
                     and _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
                 # Far outside the stability region: the step amplifies the fast
@@ -302,11 +302,11 @@ def advance(kernel, p, regs, y, atol, pol, fs, iw, V, cont, J, jv, LU, piv, LUc,
                 _switch(fs, iw, swlog, switching.implicit_choice(pol, fs[F_RTOL]),
                         REASON_UNSTABLE)
                 fs[F_H] = h
-        elif method == RADAU5:
-            ok = try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
+        elif method == RADAU_IIA:
+            ok = try_radau_iia_5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
                              LUc, pivc, cbuf, pol, h)
         else:
-            ok = try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
+            ok = try_rosenbrock_4(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv,
                             pol, h)
         if ok:
             if _finish(kernel, p, regs, y, atol, fs, iw, V, cont, pol, t_out, y_out, gv,

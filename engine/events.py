@@ -9,18 +9,18 @@ Numerical Methods, sec. 6.2), to a few units of round-off in t.
 import numpy as np
 from numba import njit
 
-from engine import dopri5, radau5, rodas, vm
-from engine.tableaux import BDF, DOPRI5, RADAU5
+from engine import dormand_prince_54, radau_iia_5, rosenbrock_4, vm
+from engine.tableaux import BDF, DORMAND_PRINCE, RADAU_IIA
 
 
 @njit(cache=True, nogil=True)
 def dense_eval(method, cont, t_old, h, t, out):
     """State at time t from the interpolant of the step (t_old, t_old + h)."""
     x = (t - t_old) / h
-    if method == DOPRI5:
-        dopri5.dense(cont, x, out)
-    elif method == RADAU5:
-        radau5.dense(cont, x, out)
+    if method == DORMAND_PRINCE:
+        dormand_prince_54.dense(cont, x, out)
+    elif method == RADAU_IIA:
+        radau_iia_5.dense(cont, x, out)
     elif method == BDF:
         # Newton form through the last points (engine.bdf): rows beyond the
         # current order are zero.
@@ -32,7 +32,7 @@ def dense_eval(method, cont, t_old, h, t, out):
             for i in range(out.shape[0]):
                 out[i] += cont[j, i] * prod
     else:
-        rodas.dense(cont, x, out)
+        rosenbrock_4.dense(cont, x, out)
 
 
 @njit(cache=True, nogil=True)

@@ -1,7 +1,7 @@
 """Public entry point of the integrators: ``integrate(kernel, ...) -> Solution``.
 
-Methods: "dopri5" (Dormand-Prince 5(4), explicit), "radau5" (Radau IIA order
-5, implicit), "rodas" (Rodas4, Rosenbrock) and "auto" (starts explicit and
+Methods: "dormand_prince_54" (Dormand-Prince 5(4), explicit), "radau_iia_5" (Radau IIA order
+5, implicit), "rosenbrock_4" (Rosenbrock, order 4) and "auto" (starts explicit and
 switches by the policy of :mod:`engine.switching`). The compiled loop
 (:mod:`engine.driver`) runs in chunks; between chunks this wrapper calls the
 monitor, enforces the wall-time limit and resumes. The report vocabulary is
@@ -19,9 +19,9 @@ import numpy as np
 from engine import bdf, driver, native, sparse, sparse_radau, state as S, vm
 from engine.report import aux_at_outputs, build_report
 from engine.switching import P_IMPLICIT, SwitchPolicy
-from engine.tableaux import BDF, DOPRI5, METHOD_NAMES, RADAU5, RODAS
+from engine.tableaux import BDF, DORMAND_PRINCE, METHOD_NAMES, RADAU_IIA, ROSENBROCK
 
-METHODS = ("auto", "dopri5", "radau5", "rodas", "bdf")
+METHODS = ("auto", "dormand_prince_54", "radau_iia_5", "rosenbrock_4", "bdf")
 
 # Named outcomes. The strings are part of the wire format.
 SUCCEEDED = "succeeded"
@@ -36,8 +36,8 @@ OUTCOMES = (SUCCEEDED, TOLERANCE_UNREACHABLE, STEP_UNDERFLOW, NEWTON_FAILURE, ST
             TIME_LIMIT, CANCELLED, NON_FINITE)
 
 MIN_RTOL = 1e-13  # below this, double precision cannot deliver the tolerance
-_PINNED = {"auto": -1, "dopri5": DOPRI5, "radau5": RADAU5, "rodas": RODAS, "bdf": BDF}
-_ORDER = {DOPRI5: 5, RADAU5: 3, RODAS: 4, BDF: 1}
+_PINNED = {"auto": -1, "dormand_prince_54": DORMAND_PRINCE, "radau_iia_5": RADAU_IIA, "rosenbrock_4": ROSENBROCK, "bdf": BDF}
+_ORDER = {DORMAND_PRINCE: 5, RADAU_IIA: 3, ROSENBROCK: 4, BDF: 1}
 _STATUS = {S.DONE: SUCCEEDED, S.ST_STEP_UNDERFLOW: STEP_UNDERFLOW,
            S.ST_NEWTON_FAILURE: NEWTON_FAILURE, S.ST_STEP_LIMIT: STEP_LIMIT,
            S.ST_NON_FINITE: NON_FINITE}
@@ -112,7 +112,7 @@ class _Run:
 
     def __init__(self, kernel, t_out, o: SolverOptions):
         n, ne = kernel.n, kernel.n_events
-        implicit = o.method != "dopri5"
+        implicit = o.method != "dormand_prince_54"
         self.sparse = o.method == "bdf" or (implicit and sparse.wants_sparse(kernel))
         self.pattern = sparse.Pattern(kernel) if self.sparse else None
         self.sparse_lu = None
@@ -131,7 +131,7 @@ class _Run:
         self.LUc, self.cbuf = _carve(np.complex128, (m, m), (m,))
         self.buffers = [a.base for a in (self.y, self.piv, self.LUc)]
         self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
-        if self.sparse:  # sparse Radau5 (engine.sparse_radau): work rows, complex rhs
+        if self.sparse:  # sparse Radau IIA (engine.sparse_radau): work rows, complex rhs
             self.sparse_luc = None
             self.radau_work = np.zeros((sparse_radau.N_WORK, n))
             self.radau_c = np.zeros(n, dtype=np.complex128)
@@ -176,11 +176,11 @@ class _Run:
         iw = self.iw
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
-        iw[S.I_METHOD] = DOPRI5 if pinned < 0 else pinned
+        iw[S.I_METHOD] = DORMAND_PRINCE if pinned < 0 else pinned
         if self.sparse and pinned >= 0:  # large sparse Jacobian: SuperLU (engine.sparse,
             # engine.sparse_radau, engine.bdf); auto starts explicit and switches to
             # the sparse BDF
-            iw[S.I_PINNED] = iw[S.I_METHOD] = pinned if pinned in (RODAS, RADAU5) else BDF
+            iw[S.I_PINNED] = iw[S.I_METHOD] = pinned if pinned in (ROSENBROCK, RADAU_IIA) else BDF
         iw[S.I_MAX_STEPS] = o.max_steps
         # "full" times each method (a switch ends a chunk); the sparse path dispatches
         # between Python and compiled loops at a switch; "counts" runs on through switches
@@ -199,9 +199,9 @@ class _Run:
 
     def advance(self, kernel, budget):
         method = self.iw[S.I_METHOD]
-        if self.sparse and method != DOPRI5:  # SuperLU: see sparse.single_threaded_blas
+        if self.sparse and method != DORMAND_PRINCE:  # SuperLU: see sparse.single_threaded_blas
             step = (bdf.advance if method == BDF else
-                    sparse_radau.advance if method == RADAU5 else sparse.advance)
+                    sparse_radau.advance if method == RADAU_IIA else sparse.advance)
             with sparse.single_threaded_blas():
                 step(kernel, self, self.pattern, budget)
             return

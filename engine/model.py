@@ -228,7 +228,7 @@ def _mass_action_arrays(spec, S: np.ndarray, pool: ConstPool):
     lists = {"react": [], "prod": [], "stoich": []}
     ptrs = {key: [0] for key in lists}
     values: list[float] = []
-    live = ~np.array(spec.fixed, dtype=bool)
+    live = ~np.array(spec.clamped, dtype=bool)
     for j, (kf, react, kr, prod) in enumerate(spec.structure):
         K[j] = (*source(kf), *source(kr))
         for key, side in (("react", react), ("prod", prod)):

@@ -85,7 +85,7 @@ def build_report(kernel, run, o, sol, conservation, secs, started, seconds=None)
     """The report of a finished run (``run``: the run's arrays, or a snapshot of its
     counters for "counts"); ``seconds``: the solve time, if measured already."""
     iw, fs = run.iw.tolist(), run.fs.tolist()  # plain numbers: cheaper to read one by one
-    steps = {name: iw[S.I_STEPS_DOPRI5 + k] for k, name in enumerate(METHOD_NAMES)}
+    steps = {name: iw[S.I_STEPS_DORMAND_PRINCE + k] for k, name in enumerate(METHOD_NAMES)}
     rep = {
         "method": o.method,
         "methods_used": [m for m in METHOD_NAMES if steps[m]],

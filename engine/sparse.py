@@ -1,13 +1,13 @@
 """Large sparse systems: SuperLU on the Jacobian's pattern, the loop head and the
 return to the explicit method shared by the sparse methods (engine.bdf,
-engine.sparse_radau), and Rodas4 steps.
+engine.sparse_radau), and Rosenbrock 4(3) steps.
 
 Used when n > SPARSE_MIN_N and the Jacobian has under SPARSE_MAX_DENSITY of
 its entries non-zero (e.g. reaction-diffusion grids). The step loop runs in
 Python (the per-step Python cost is small next to a sparse factorisation);
 vector work, the interpolant, outputs and events use the compiled helpers of
 the dense path on the same state arrays, so counters, outcomes and the report
-are shared. Method: Rodas4 (Hairer & Wanner II, sec. VI.4) with
+are shared. Method: Rosenbrock 4(3) (Hairer & Wanner II, sec. VI.4) with
 scipy.sparse.linalg.splu on (1/(gamma h)) I - J, in CSC form built from the
 kernel's COO pattern (jac_rows, jac_cols) plus the diagonal.
 """
@@ -19,12 +19,12 @@ import numpy as np
 from scipy.sparse import csc_matrix
 from scipy.sparse.linalg import splu
 
-from engine import rodas, state as S, vm
+from engine import rosenbrock_4, state as S, vm
 from engine.driver import EPS, _finish, _switch
 from engine.errors_norm import err_norm
 from engine.steps import reject
 from engine.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
-from engine.tableaux import DOPRI5, RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
+from engine.tableaux import DORMAND_PRINCE, RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
 
 SPARSE_MIN_N = 200
 SPARSE_MAX_DENSITY = 0.05
@@ -181,7 +181,7 @@ class Pattern:
 
 
 def _attempt(kernel, run, lu, t, h):
-    """One Rodas4 step with the factors in ``lu``; returns (error norm, rhs evals)."""
+    """One Rosenbrock 4(3) step with the factors in ``lu``; returns (error norm, rhs evals)."""
     V, y, p, regs = run.V, run.y, run.p, run.regs
     K = V[S.V_K:S.V_K + 6]
     ytmp, f0, fdt = V[S.V_YTMP], V[S.V_F0], V[S.V_FDT]
@@ -273,7 +273,7 @@ def explicit_cheaper(run, h) -> bool:
 def to_explicit(kernel, run):
     """Hand the run back to the compiled Dormand-Prince loop (engine.driver)."""
     fs, iw, V = run.fs, run.iw, run.V
-    _switch(fs, iw, run.swlog, DOPRI5, REASON_EXPLICIT_CHEAPER)
+    _switch(fs, iw, run.swlog, DORMAND_PRINCE, REASON_EXPLICIT_CHEAPER)
     iw[S.I_RETURN] = 0  # the Python loop dispatches the next chunk to the driver
     fs[S.F_H] = min(fs[S.F_H], 0.5 * fs[S.F_HEXP])
     vm.rhs(kernel, fs[S.F_T], run.y, run.p, run.regs, V[S.V_F0])
@@ -282,7 +282,7 @@ def to_explicit(kernel, run):
 
 
 def advance(kernel, run, pattern, budget):
-    """Python twin of engine.driver.advance for the sparse Rodas path."""
+    """Python twin of engine.driver.advance for the sparse Rosenbrock path."""
     fs, iw = run.fs, run.iw
     steps = 0
     lu = run.sparse_lu
@@ -328,15 +328,15 @@ def _decide(kernel, run, err, h):
             return
     first = bool(iw[S.I_FIRST])
     if err > 1.0:
-        _reject(run, h, rodas.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], False,
+        _reject(run, h, rosenbrock_4.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], False,
                                           first), S.FAIL_ERROR)
         return
-    fac = rodas.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], True, first)
+    fac = rosenbrock_4.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], True, first)
     if iw[S.I_LAST_REJECTED]:
         fac = min(fac, 1.0)
     fs[S.F_H_OLD] = h
     fs[S.F_ERR_OLD] = max(0.01, err)
-    rodas.prepare_dense(run.y, ynew, V[S.V_K:S.V_K + 6], run.cont)
+    rosenbrock_4.prepare_dense(run.y, ynew, V[S.V_K:S.V_K + 6], run.cont)
     fs[S.F_H] = h * fac
     iw[S.I_JAC_CURRENT] = 0
     if _finish(kernel, run.p, run.regs, run.y, run.atol, fs, iw, V, run.cont, run.pol,

@@ -1,7 +1,7 @@
 """Radau IIA of order 5 for large sparse systems (SuperLU).
 
-The Python twin of the compiled dense step (engine.steps.try_radau5 with
-engine.radau5): Hairer & Wanner II, sec. IV.8. Simplified Newton iterations on
+The Python twin of the compiled dense step (engine.steps.try_radau_iia_5 with
+engine.radau_iia_5): Hairer & Wanner II, sec. IV.8. Simplified Newton iterations on
 the transformed collocation system need one real factorisation of
 (MU_REAL/h) I - J and one complex of ((MU_RE + i MU_IM)/h) I - J; both are
 SuperLU factors on the Jacobian's pattern (engine.sparse.Pattern, the complex
@@ -22,15 +22,15 @@ import math
 import numpy as np
 from numba import njit
 
-from engine import radau5, state as S, vm
+from engine import radau_iia_5, state as S, vm
 from engine.driver import _finish
 from engine.errors_norm import err_norm
 from engine.sparse import explicit_cheaper, new_jacobian, next_step, to_explicit
 from engine.steps import nonneg_check, reject
 from engine.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_T, RA_TI,
-                             RADAU5)
+                             RADAU_IIA)
 
-NEWTON_MAXITER = radau5.NEWTON_MAXITER
+NEWTON_MAXITER = radau_iia_5.NEWTON_MAXITER
 # Rows of the real work array ``run.radau_work`` (one per sparse run).
 W_D = 0      # 0..2: Newton increments of the transformed variables (natural order)
 W_B = 3      # right-hand side of the real system (the factor's order)
@@ -139,7 +139,7 @@ def _jacobian(kernel, run, pattern, t, y):
 
 
 def _newton(kernel, run, t, h, scale, tol):
-    """Simplified Newton on the collocation system (radau5.newton with sparse
+    """Simplified Newton on the collocation system (radau_iia_5.newton with sparse
     solves). Returns (converged, iterations, rate; -1 when f is not finite)."""
     V, y, p, regs = run.V, run.y, run.p, run.regs
     lr, lc = run.sparse_lu, run.sparse_luc
@@ -156,7 +156,7 @@ def _newton(kernel, run, t, h, scale, tol):
         dw = _increment(lr.lu.solve(br), lc.lu.solve(bc), lr.perm, lc.perm, scale, D)
         if dw_old > 0.0:
             rate = dw / dw_old
-            if radau5.too_slow(rate, k, dw, tol):
+            if radau_iia_5.too_slow(rate, k, dw, tol):
                 return False, k + 1, rate
         _apply(D, W, Z)
         if dw == 0.0 or (dw_old > 0.0 and rate / (1.0 - rate) * dw < tol):
@@ -166,7 +166,7 @@ def _newton(kernel, run, t, h, scale, tol):
 
 
 def _error(kernel, run, t, h, refine):
-    """Embedded error estimate filtered through the real factor (radau5.error);
+    """Embedded error estimate filtered through the real factor (radau_iia_5.error);
     ``refine`` filters once more after a rejection or on the first step."""
     V, y, lu = run.V, run.y, run.sparse_lu
     ynew, ze, e, b = V[S.V_YNEW], V[S.V_YTMP], V[S.V_ERR], run.radau_work[W_B]
@@ -189,7 +189,7 @@ def _reject(run, h, fac, kind):
 
 
 def step(kernel, run, pattern, h):
-    """Attempt one step of size h (engine.steps.try_radau5); book it when
+    """Attempt one step of size h (engine.steps.try_radau_iia_5); book it when
     accepted. Returns True when accepted."""
     fs, iw, V = run.fs, run.iw, run.V
     t = fs[S.F_T]
@@ -209,7 +209,7 @@ def step(kernel, run, pattern, h):
     scale = V[S.V_SCALE]
     _scale(run.y, run.atol, rtol, scale)
     Z = V[S.V_Z:S.V_Z + 3]
-    radau5.predict(run.cont, iw[S.I_HAVE_CONT] == 1 and iw[S.I_CONT_METHOD] == RADAU5,
+    radau_iia_5.predict(run.cont, iw[S.I_HAVE_CONT] == 1 and iw[S.I_CONT_METHOD] == RADAU_IIA,
                    fs[S.F_T_OLD], fs[S.F_H_LAST], t, h, run.y, Z)
     conv, nit, rate = _newton(kernel, run, t, h, scale, fs[S.F_NEWTON_TOL])
     iw[S.I_NEWTON_IT] += nit
@@ -231,11 +231,11 @@ def step(kernel, run, pattern, h):
         iw[S.I_LU_VALID] = 0
         return _reject(run, h, 0.5, S.FAIL_ERROR)
     if err > 1.0:
-        fac = radau5.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], nit, False)
+        fac = radau_iia_5.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], nit, False)
         iw[S.I_LU_VALID] = 0
         return _reject(run, h, fac, S.FAIL_ERROR)
     recompute_jac = nit > 2 and rate > 1e-3
-    fac = radau5.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], nit, True)
+    fac = radau_iia_5.step_factor(h, fs[S.F_H_OLD], err, fs[S.F_ERR_OLD], nit, True)
     if iw[S.I_LAST_REJECTED] == 1:
         fac = min(fac, 1.0)
     if not recompute_jac and 1.0 <= fac < KEEP_H_BELOW:
@@ -244,7 +244,7 @@ def step(kernel, run, pattern, h):
         iw[S.I_LU_VALID] = 0
     fs[S.F_H_OLD] = h
     fs[S.F_ERR_OLD] = err
-    radau5.prepare_dense(run.y, Z, run.cont)
+    radau_iia_5.prepare_dense(run.y, Z, run.cont)
     fs[S.F_H] = h * fac
     # -1: a new Jacobian at the start of the next step (the dense path's -2)
     iw[S.I_JAC_CURRENT] = -1 if recompute_jac else 0
@@ -258,7 +258,7 @@ def step(kernel, run, pattern, h):
 
 
 def advance(kernel, run, pattern, budget):
-    """Python twin of engine.driver.advance for the sparse Radau5 path."""
+    """Python twin of engine.driver.advance for the sparse Radau IIA path."""
     iw = run.iw
     steps = 0
     while iw[S.I_STATUS] == S.RUNNING:

@@ -28,7 +28,7 @@ def is_number(v) -> bool:
 
 
 TOP_KEYS = ("title", "description", "states", "parameters", "derived", "ddt", "reactions", "events")
-STATE_KEYS = ("initial", "unit", "nonnegative", "fixed", "description")
+STATE_KEYS = ("initial", "unit", "nonnegative", "clamped", "description")
 PARAM_KEYS = ("value", "unit", "description")
 EVENT_KEYS = ("name", "when", "direction", "stop", "description")
 DIRECTIONS = {"rising": 1, "falling": -1, "both": 0}
@@ -45,7 +45,7 @@ class _Spec:
     state_names: list = field(default_factory=list)
     y0: list = field(default_factory=list)
     nonnegative: list = field(default_factory=list)
-    fixed: list = field(default_factory=list)
+    clamped: list = field(default_factory=list)
     units: dict = field(default_factory=dict)
     param_names: list = field(default_factory=list)
     p: list = field(default_factory=list)
@@ -152,12 +152,12 @@ def _read_states(r: _Reader, model):
         path = ("states", name)
         if not r.new_name(name, path):
             continue
-        init, nonneg, fixed, unit = 0.0, False, False, ""
+        init, nonneg, clamped, unit = 0.0, False, False, ""
         if isinstance(v, dict):
             r.keys(v, STATE_KEYS, path)
             init = r.number(v.get("initial"), (*path, "initial"), 0.0)
             nonneg = r.flag(v.get("nonnegative"), (*path, "nonnegative"))
-            fixed = r.flag(v.get("fixed"), (*path, "fixed"))
+            clamped = r.flag(v.get("clamped"), (*path, "clamped"))
             unit = r.text(v.get("unit"), (*path, "unit"), 32)
             r.text(v.get("description"), (*path, "description"))
         else:
@@ -166,7 +166,7 @@ def _read_states(r: _Reader, model):
         spec.state_names.append(name)
         spec.y0.append(init if init is not None else 0.0)
         spec.nonnegative.append(nonneg)
-        spec.fixed.append(fixed)
+        spec.clamped.append(clamped)
         if unit:
             spec.units[name] = unit
 
@@ -220,8 +220,8 @@ def _read_ddt(r: _Reader, model):
             r.issue(path, f"'{name}' is not a state; ddt keys must be declared in states",
                     None, suggest(str(name), spec.state_names))
             continue
-        if spec.fixed[index[name]]:
-            r.issue(path, f"state '{name}' is fixed (held constant); remove its ddt or 'fixed'")
+        if spec.clamped[index[name]]:
+            r.issue(path, f"state '{name}' is clamped (held constant); remove its ddt or 'clamped'")
             continue
         node = r.expr(text, path)
         if node is not None:
@@ -254,7 +254,7 @@ def _read_events(r: _Reader, model):
 
 
 def _assemble(spec: _Spec):
-    """rhs_i = ddt_i + sum_j S_ij r_j; fixed states have zero derivative."""
+    """rhs_i = ddt_i + sum_j S_ij r_j; clamped states have zero derivative."""
     b = spec.builder
     terms: list[list] = [[] for _ in spec.state_names]
     index = {n: i for i, n in enumerate(spec.state_names)}
@@ -267,18 +267,18 @@ def _assemble(spec: _Spec):
                 in_reaction.add(i)
                 net[i] = net.get(i, 0.0) + sign * float(coef)
         for i, c in net.items():
-            if c != 0.0 and not spec.fixed[i]:
+            if c != 0.0 and not spec.clamped[i]:
                 terms[i].append(b.mul(b.const(c), rate))
     for i in range(len(spec.state_names)):
         acc = spec.ddt.get(i, b.zero)
         for term in terms[i]:
             acc = b.add(acc, term)
-        spec.rhs.append(acc if not spec.fixed[i] else b.zero)
+        spec.rhs.append(acc if not spec.clamped[i] else b.zero)
         own = spec.ddt.get(i, b.zero)
-        if own is not b.zero and not spec.fixed[i]:
+        if own is not b.zero and not spec.clamped[i]:
             spec.ddt_terms[i] = own
     spec.law_states = sorted(i for i in in_reaction
-                             if not spec.fixed[i] and spec.ddt.get(i, b.zero) is b.zero)
+                             if not spec.clamped[i] and spec.ddt.get(i, b.zero) is b.zero)
 
 
 def read_model(model, limits: Limits):

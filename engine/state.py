@@ -18,8 +18,8 @@ N_FS = 19
  I_JAC_CURRENT, I_LU_VALID, I_CONT_METHOD, I_HAVE_CONT, I_NEV_LOG, I_NEV_TOTAL,
  I_SWITCH_RETURNS, I_SPARE27, I_SPARE28, I_NONNEG, I_HAS_TIME,
  I_FAIL_STREAK, I_FAIL_KIND, I_TERMINAL, I_RETURN, I_NONNEG_REJECTS) = range(36)
-# accepted steps per method id (engine.tableaux): four slots from I_STEPS_DOPRI5
-I_STEPS_DOPRI5, I_STEPS_RADAU5, I_STEPS_RODAS, I_STEPS_BDF = 36, 37, 38, 39
+# accepted steps per method id (engine.tableaux): four slots from I_STEPS_DORMAND_PRINCE
+I_STEPS_DORMAND_PRINCE, I_STEPS_RADAU_IIA, I_STEPS_ROSENBROCK, I_STEPS_BDF = 36, 37, 38, 39
 I_ORDER, I_EQUAL_STEPS = 40, 41  # variable-order BDF (sparse path)
 N_IW = 42
 
@@ -29,13 +29,13 @@ RUNNING, DONE, ST_STEP_UNDERFLOW, ST_NEWTON_FAILURE, ST_STEP_LIMIT, ST_NON_FINIT
 FAIL_NONE, FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR = range(5)
 
 # Rows of V
-V_K = 0          # 0..6: stage derivatives (dopri5: 7, rodas: 6)
+V_K = 0          # 0..6: stage derivatives (dormand_prince_54: 7, rosenbrock_4: 6)
 V_YNEW = 7
 V_YTMP = 8
 V_ERR = 9
 V_SCALE = 10
 V_F0 = 11        # f(t, y) at the current accepted point
-V_FDT = 12       # df/dt (Rodas, time-dependent models)
+V_FDT = 12       # df/dt (Rosenbrock, time-dependent models)
 V_Z = 13         # 13..15 Radau stage increments
 V_W = 16         # 16..18 transformed increments
 V_F = 19         # 19..21 stage derivatives

@@ -1,14 +1,14 @@
 """One attempted step of each dense-path method, with its bookkeeping.
 
 Each ``try_*`` function takes the step size h, runs the method's attempt
-(engine.dopri5 / radau5 / rodas), applies the method's step-size controller
+(engine.dormand_prince_54 / radau_iia_5 / rosenbrock_4), applies the method's step-size controller
 and either prepares the step's interpolant (accepted: returns True) or books
 a rejection. Counters and failure kinds go into the driver's state arrays.
 """
 import numpy as np
 from numba import njit
 
-from engine import dopri5, radau5, rodas, switching, vm
+from engine import dormand_prince_54, radau_iia_5, rosenbrock_4, switching, vm
 from engine.state import (FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
                           F_ERR_OLD, F_H, F_H_LAST, F_H_LU, F_H_OLD, F_HEXP, F_NEWTON_TOL,
                           F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_BAD, F_T_OLD,
@@ -18,7 +18,7 @@ from engine.state import (FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR
                           I_REJECTED, V_ERR, V_F, V_F0, V_FDT, V_K, V_NNMASK, V_PV, V_PW,
                           V_SCALE, V_W, V_YNEW, V_YTMP, V_Z)
 from engine.switching import P_BOUNDARY, P_POWER_ITERS
-from engine.tableaux import RADAU5
+from engine.tableaux import RADAU_IIA
 
 EPS = 2.220446049250313e-16
 
@@ -57,13 +57,13 @@ def new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol):
 
 
 @njit(cache=True, nogil=True, _nrt=False)
-def try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
+def try_dormand_prince_54(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
     K = V[V_K:V_K + 7]
     ynew = V[V_YNEW]
     rtol = fs[F_RTOL]
-    err, rho = dopri5.attempt(kernel, p, regs, fs[F_T], y, h, K, ynew, V[V_YTMP],
+    err, rho = dormand_prince_54.attempt(kernel, p, regs, fs[F_T], y, h, K, ynew, V[V_YTMP],
                               V[V_ERR], atol, rtol)
-    iw[I_NFEV] += dopri5.STAGE_EVALS
+    iw[I_NFEV] += dormand_prince_54.STAGE_EVALS
     fs[F_RATE] = rho  # kept for the instability check of automatic mode
     if not (err < np.inf):
         reject(fs, iw, h, 0.2, FAIL_NONFINITE)
@@ -72,7 +72,7 @@ def try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
         iw[I_NONNEG_REJECTS] += 1
         reject(fs, iw, h, 0.5, FAIL_ERROR)
         return False
-    fac = dopri5.step_factor(err, fs[F_ERR_OLD], iw[I_LAST_REJECTED])
+    fac = dormand_prince_54.step_factor(err, fs[F_ERR_OLD], iw[I_LAST_REJECTED])
     if err > 1.0:
         reject(fs, iw, h, fac, FAIL_ERROR)
         return False
@@ -85,7 +85,7 @@ def try_dopri5(kernel, p, regs, y, atol, fs, iw, V, cont, pol, h):
 
 
 @njit(cache=True, nogil=True, _nrt=False)
-def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
+def try_radau_iia_5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
                 pivc, cbuf, pol, h):
     t = fs[F_T]
     rtol = fs[F_RTOL]
@@ -94,7 +94,7 @@ def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         new_jacobian(kernel, p, regs, t, y, fs, iw, V, J, jv, pol)
     if iw[I_LU_VALID] == 0 or fs[F_H_LU] != h:
         iw[I_NLU] += 1
-        if not radau5.factor(J, h, LU, piv, LUc, pivc):
+        if not radau_iia_5.factor(J, h, LU, piv, LUc, pivc):
             iw[I_LU_VALID] = 0
             reject(fs, iw, h, 0.5, FAIL_SINGULAR)
             return False
@@ -104,9 +104,9 @@ def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
     for i in range(n):
         scale[i] = atol[i] + rtol * abs(y[i])
     Z = V[V_Z:V_Z + 3]
-    radau5.predict(cont, iw[I_HAVE_CONT] == 1 and iw[I_CONT_METHOD] == RADAU5,
+    radau_iia_5.predict(cont, iw[I_HAVE_CONT] == 1 and iw[I_CONT_METHOD] == RADAU_IIA,
                    fs[F_T_OLD], fs[F_H_LAST], t, h, y, Z)
-    conv, nit, rate, nf = radau5.newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc,
+    conv, nit, rate, nf = radau_iia_5.newton(kernel, p, regs, t, y, h, LU, piv, LUc, pivc,
                                         Z, V[V_W:V_W + 3], V[V_F:V_F + 3], V[V_YTMP],
                                         cbuf, scale, fs[F_NEWTON_TOL])
     iw[I_NFEV] += nf
@@ -121,7 +121,7 @@ def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         return False
     ynew = V[V_YNEW]
     refine = iw[I_FIRST] == 1 or iw[I_LAST_REJECTED] == 1
-    err, nf = radau5.error(kernel, p, regs, t, y, V[V_F0], h, LU, piv, Z, ynew,
+    err, nf = radau_iia_5.error(kernel, p, regs, t, y, V[V_F0], h, LU, piv, Z, ynew,
                            V[V_ERR], V[V_YTMP], atol, rtol, refine)
     iw[I_NFEV] += nf
     if not (err < np.inf):
@@ -134,12 +134,12 @@ def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         reject(fs, iw, h, 0.5, FAIL_ERROR)
         return False
     if err > 1.0:
-        fac = radau5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, False)
+        fac = radau_iia_5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, False)
         iw[I_LU_VALID] = 0
         reject(fs, iw, h, fac, FAIL_ERROR)
         return False
     recompute_jac = nit > 2 and rate > 1e-3
-    fac = radau5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, True)
+    fac = radau_iia_5.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], nit, True)
     if iw[I_LAST_REJECTED] == 1:
         fac = min(fac, 1.0)
     if not recompute_jac and fac < 1.2 and fac >= 1.0:
@@ -148,14 +148,14 @@ def try_radau5(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, LUc,
         iw[I_LU_VALID] = 0
     fs[F_H_OLD] = h
     fs[F_ERR_OLD] = err
-    radau5.prepare_dense(y, Z, cont)
+    radau_iia_5.prepare_dense(y, Z, cont)
     fs[F_H] = h * fac
     iw[I_JAC_CURRENT] = -2 if recompute_jac else 0  # -2: refresh after the step
     return True
 
 
 @njit(cache=True, nogil=True, _nrt=False)
-def try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h):
+def try_rosenbrock_4(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h):
     t = fs[F_T]
     rtol = fs[F_RTOL]
     n = y.shape[0]
@@ -173,7 +173,7 @@ def try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h)
             fdt[:] = 0.0
     if iw[I_LU_VALID] == 0 or fs[F_H_LU] != h:
         iw[I_NLU] += 1
-        if not rodas.factor(J, h, LU, piv):
+        if not rosenbrock_4.factor(J, h, LU, piv):
             iw[I_LU_VALID] = 0
             reject(fs, iw, h, 0.5, FAIL_SINGULAR)
             return False
@@ -181,7 +181,7 @@ def try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h)
         fs[F_H_LU] = h
     K = V[V_K:V_K + 6]
     ynew = V[V_YNEW]
-    err, nf = rodas.attempt(kernel, p, regs, t, y, f0, fdt, h, LU, piv, K, ynew,
+    err, nf = rosenbrock_4.attempt(kernel, p, regs, t, y, f0, fdt, h, LU, piv, K, ynew,
                             V[V_YTMP], V[V_ERR], atol, rtol)
     iw[I_NFEV] += nf
     if not (err < np.inf):
@@ -193,15 +193,15 @@ def try_rodas(kernel, p, regs, y, atol, fs, iw, V, cont, J, jv, LU, piv, pol, h)
         return False
     first = iw[I_FIRST] == 1
     if err > 1.0:
-        fac = rodas.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], False, first)
+        fac = rosenbrock_4.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], False, first)
         reject(fs, iw, h, fac, FAIL_ERROR)
         return False
-    fac = rodas.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], True, first)
+    fac = rosenbrock_4.step_factor(h, fs[F_H_OLD], err, fs[F_ERR_OLD], True, first)
     if iw[I_LAST_REJECTED] == 1:
         fac = min(fac, 1.0)
     fs[F_H_OLD] = h
     fs[F_ERR_OLD] = max(0.01, err)
-    rodas.prepare_dense(y, ynew, K, cont)
+    rosenbrock_4.prepare_dense(y, ynew, K, cont)
     fs[F_H] = h * fac
     iw[I_JAC_CURRENT] = 0  # a Rosenbrock step needs J at its own start point
     return True

@@ -90,8 +90,8 @@ def _sparse_radius(kernel, t, y, p, regs, vals, iters=30):
     return rho
 
 
-def dopri5_real_boundary() -> float:
-    """Where |R(z)| = 1 on the negative real axis for DOPRI5 (used by docs)."""
+def dormand_prince_54_real_boundary() -> float:
+    """Where |R(z)| = 1 on the negative real axis for Dormand-Prince 5(4) (used by docs)."""
     from engine.tableaux import DP_A
     b = DP_A[6]
     A = DP_A[:7, :7]

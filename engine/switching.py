@@ -3,8 +3,8 @@
 - Explicit -> implicit: Dormand-Prince estimates h * rho from its last two
   stages (Hairer & Wanner II, sec. IV.2); after ``stiff_tests`` consecutive
   steps with h * rho > ``stiff_threshold`` the step is limited by stability, not by
-  accuracy, and the run switches to an implicit method (Radau5 below
-  ``radau_below_rtol``, Rodas otherwise; BDF with sparse LU for large sparse
+  accuracy, and the run switches to an implicit method (Radau IIA below
+  ``radau_below_rtol``, Rosenbrock otherwise; BDF with sparse LU for large sparse
   models).
 - Implicit -> explicit: rho is estimated from the Jacobian (power iteration);
   when the explicit stability-limited step boundary / rho is at least
@@ -44,12 +44,12 @@ LOG_COLUMNS = ("t", "from", "to", "h", "rho", "explicit_step", "reason")
 
 @dataclass(frozen=True)
 class SwitchPolicy:
-    boundary: float = 3.3          # real-axis stability boundary of DOPRI5
+    boundary: float = 3.3          # real-axis stability boundary of Dormand-Prince 5(4)
     stiff_tests: int = 15          # consecutive positive stiffness tests
     nonstiff_tests: int = 6        # consecutive "explicit would do" tests
     back_ratio: float = 1.0        # boundary/rho >= back_ratio * h_implicit
     min_steps: int = 20            # hysteresis: steps before another switch
-    radau_below_rtol: float = 5e-4  # implicit method: radau5 below, rodas at looser rtol
+    radau_below_rtol: float = 5e-4  # implicit method: radau_iia_5 below, rosenbrock_4 at looser rtol
     # (chosen at matched accuracy on the benchmark suite: docs/engine.md)
     reset_after: int = 6           # non-stiff tests that clear the stiff count
     power_iterations: int = 6      # per Jacobian, warm-started
@@ -111,7 +111,7 @@ def log_switch(log, n_logged, t, m_from, m_to, h, rho, h_exp, reason):
 
 @njit(cache=True, nogil=True)
 def implicit_choice(pol, rtol):
-    """1 = radau5, 2 = rodas (ids of engine.tableaux); the engine sets P_IMPLICIT to
+    """1 = radau_iia_5, 2 = rosenbrock_4 (ids of engine.tableaux); the engine sets P_IMPLICIT to
     3 = bdf for large sparse models (sparse LU)."""
     if pol[P_IMPLICIT] >= 0.0:
         return int(pol[P_IMPLICIT])

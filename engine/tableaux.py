@@ -2,12 +2,12 @@
 
 - Dormand-Prince 5(4) with its continuous extension: Hairer, Norsett & Wanner,
   Solving ODEs I, sec. II.5, Table 5.2 and the dense-output coefficients of
-  sec. II.6 (as used by the published DOPRI5 code).
+  sec. II.6 (as used by Hairer, Norsett & Wanner's published Dormand-Prince code).
 - Radau IIA order 5: Hairer & Wanner, Solving ODEs II, sec. IV.8 (nodes, the
   eigen-decomposition of the inverse coefficient matrix, error vector and the
   collocation interpolant written in powers of the step fraction).
-- Rodas4: Hairer & Wanner, Solving ODEs II, sec. VI.4 (the 6-stage stiffly
-  accurate Rosenbrock method of order 4(3) of the published RODAS code,
+- Rosenbrock 4(3): Hairer & Wanner, Solving ODEs II, sec. VI.4 (the 6-stage stiffly
+  accurate Rosenbrock method of order 4(3) of Hairer & Wanner's published Rosenbrock code,
   coefficient set 1) with its order-3 dense output.
 """
 import math
@@ -52,7 +52,7 @@ RA_P = np.array([
     [13 / 3 - 7 * S6 / 3, -23 / 3 + 22 * S6 / 3, 10 / 3 - 5 * S6],
     [1 / 3, -8 / 3, 10 / 3]])
 
-# --- Rodas4 (coefficient set 1 of the published RODAS code) ----------------
+# --- Rosenbrock 4(3) (coefficient set 1 of Hairer & Wanner's published Rosenbrock code) ----------------
 RO_GAMMA = 0.25
 RO_C = np.array([0.0, 0.386, 0.21, 0.63, 1.0, 1.0])
 RO_D = np.array([0.25, -0.1043, 0.1035, -0.3620000000000023e-01, 0.0, 0.0])
@@ -82,5 +82,5 @@ RO_DENSE = np.array([
      0.2476722511418386e+02, -0.6594389125716872e+01]])
 
 # Method identifiers used inside the compiled loop.
-DOPRI5, RADAU5, RODAS, BDF = 0, 1, 2, 3
-METHOD_NAMES = ("dopri5", "radau5", "rodas", "bdf")
+DORMAND_PRINCE, RADAU_IIA, ROSENBROCK, BDF = 0, 1, 2, 3
+METHOD_NAMES = ("dormand_prince_54", "radau_iia_5", "rosenbrock_4", "bdf")

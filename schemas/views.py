@@ -41,6 +41,12 @@ class CreatedSchema(Schema):
     links = fields.Nested(JobLinksSchema)
 
 
+CAUTION = ("Numerical results are approximations. Before any engineering, safety or clinical "
+           "decision (reactor design, relief sizing, dosing), have them checked by a qualified "
+           "person against local codes and licensed practice.")
+CAUTION_CSV_LINE = "# caution: " + CAUTION  # first line of every CSV export
+
+
 class ResultSchema(Schema):
     id = fields.String()
     outcome = fields.String()

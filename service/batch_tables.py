@@ -15,6 +15,7 @@ import numpy as np
 from engine import sampling
 from jobs import blob as result_blob
 from jobs.batch_store import BatchRecord, BatchStore
+from schemas.views import CAUTION, CAUTION_CSV_LINE
 
 QUANTILES = (5, 50, 95)
 LOST = "worker_lost"
@@ -122,6 +123,7 @@ def as_json(table: Table) -> dict:
 def as_csv(table: Table) -> str:
     """One row per member: index, values, summaries, outcome, message (empty cell for NaN)."""
     buf = io.StringIO()
+    buf.write(CAUTION_CSV_LINE + "\n")
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(["index", *table.value_names, *table.summary_names, "outcome", "message"])
     numbers = np.column_stack([table.values, table.summaries]) if len(table) else np.zeros((0, 0))
@@ -141,5 +143,5 @@ def as_npz(table: Table, output_times: np.ndarray | None, state_names: list) -> 
                         value_names=np.array(table.value_names, dtype=str), summaries=table.summaries,
                         summary_names=np.array(table.summary_names, dtype=str),
                         outcome=np.array(table.outcomes, dtype=str), message=np.array(table.messages, dtype=str),
-                        **extra)
+                        caution=np.array(CAUTION), **extra)
     return buf.getvalue()

@@ -21,7 +21,7 @@ from service.idempotency import idempotent
 from service.jsonbody import read_json_object
 from service.paging import next_link, page_args
 from service.problems import ApiProblem
-from service.results import CAUTION
+from schemas.views import CAUTION
 
 bp = Blueprint("batches", __name__, url_prefix="/v1")
 FORMATS = {"json": "application/json", "csv": "text/csv", "npz": "application/x-npz"}

@@ -7,11 +7,7 @@ import io
 import numpy as np
 
 from jobs import blob as result_blob
-from schemas.views import ResultSchema
-
-CAUTION = ("Numerical results are approximations. Before any engineering, safety or clinical "
-           "decision (reactor design, relief sizing, dosing), have them checked by a qualified "
-           "person against local codes and licensed practice.")
+from schemas.views import CAUTION, CAUTION_CSV_LINE, ResultSchema
 
 FORMATS = {"json": "application/json", "csv": "text/csv", "npz": "application/x-npz"}
 _ACCEPT_ALIASES = {"application/json": "json", "text/csv": "csv", "application/x-npz": "npz",
@@ -50,6 +46,7 @@ def as_csv(blob: bytes) -> str:
     meta, arrays = decode(blob)
     table = np.column_stack([arrays["t"], arrays["y"], arrays["aux"]]) if len(arrays["t"]) else []
     buf = io.StringIO()
+    buf.write(CAUTION_CSV_LINE + "\n")
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(["t", *meta["state_names"], *meta["aux_names"]])
     for row in table:
@@ -62,5 +59,6 @@ def as_npz(blob: bytes) -> bytes:
     buf = io.BytesIO()
     np.savez_compressed(buf, t=arrays["t"], y=arrays["y"], derived=arrays["aux"],
                         state_names=np.array(meta["state_names"], dtype=str),
-                        derived_names=np.array(meta["aux_names"], dtype=str))
+                        derived_names=np.array(meta["aux_names"], dtype=str),
+                        caution=np.array(CAUTION))
     return buf.getvalue()

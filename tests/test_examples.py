@@ -5,9 +5,9 @@ from schemas.job import JobSpecSchema
 from tests.conftest import example_path
 
 
-def test_the_demo_job_embeds_the_shipped_lakeside_model():
-    job = json.loads(example_path("jobs", "lakeside_demo.json").read_text())
-    model = json.loads(example_path("models", "lakeside_hydrogenation.json").read_text())
+def test_the_demo_job_embeds_the_shipped_tarnwhistle_model():
+    job = json.loads(example_path("jobs", "tarnwhistle_demo.json").read_text())
+    model = json.loads(example_path("models", "tarnwhistle_hydrogenation.json").read_text())
     assert job["model"] == model
     assert "Invented" in model["title"] and "nvented" in job["label"]
 

@@ -2,7 +2,7 @@
 
     from stifflane_client import Client
     c = Client("http://127.0.0.1:8750")          # key: key=... or $STIFFLANE_KEY
-    job = c.submit("examples/jobs/lakeside_demo.json")
+    job = c.submit("examples/jobs/tarnwhistle_demo.json")
     job.wait(progress=True)
     res = job.result()                            # res.t, res.y, res["T"], res.to_dataframe()
 """
@@ -10,9 +10,9 @@ from stifflane_client.batches import Batch, BatchTable
 from stifflane_client.client import Client, Job
 from stifflane_client.errors import (ApiError, AuthError, InvalidSpec, JobFailed, ServiceUnavailable,
                                      StifflaneError, WaitTimeout)
-from stifflane_client.results import Result
+from stifflane_client.results import CAUTION, Result
 from stifflane_client.spec import Model, job_spec, load_spec
 
 __all__ = ["Client", "Job", "Result", "Batch", "BatchTable", "Model", "job_spec", "load_spec", "ApiError", "AuthError",
-           "InvalidSpec", "JobFailed", "ServiceUnavailable", "StifflaneError", "WaitTimeout"]
+           "InvalidSpec", "JobFailed", "ServiceUnavailable", "StifflaneError", "WaitTimeout", "CAUTION"]
 __version__ = "0.1.0"

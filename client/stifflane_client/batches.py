@@ -7,7 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from stifflane_client.progress import poll_until_done
-from stifflane_client.results import _array
+from stifflane_client.results import CAUTION, _array
 from stifflane_client.spec import load_spec
 
 BATCH_TERMINAL = ("succeeded", "failed", "cancelled")
@@ -25,6 +25,7 @@ class BatchTable:
     message: list
     complete: bool = True
     state: str = ""
+    caution: str = CAUTION
 
     @classmethod
     def from_json(cls, body: dict) -> "BatchTable":
@@ -33,7 +34,7 @@ class BatchTable:
                    {k: _array(v) for k, v in (cols.get("values") or {}).items()},
                    {k: _array(v) for k, v in (cols.get("summaries") or {}).items()},
                    list(cols.get("outcome") or []), list(cols.get("message") or []),
-                   bool(body.get("complete", True)), body.get("state", ""))
+                   bool(body.get("complete", True)), body.get("state", ""), body.get("caution") or CAUTION)
 
     def __len__(self) -> int:
         return len(self.index)

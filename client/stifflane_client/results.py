@@ -6,6 +6,12 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+# The server's caution (schemas/views.py holds the same text; a test keeps them equal). The client
+# stands alone, so it keeps a copy for results that arrive without one.
+CAUTION = ("Numerical results are approximations. Before any engineering, safety or clinical "
+           "decision (reactor design, relief sizing, dosing), have them checked by a qualified "
+           "person against local codes and licensed practice.")
+
 
 def _array(values) -> np.ndarray:
     # JSON carries NaN/inf as null: bring them back as NaN
@@ -26,7 +32,7 @@ class Result:
     message: str = ""
     report: dict = field(default_factory=dict)
     model: dict = field(default_factory=dict)
-    caution: str = ""
+    caution: str = CAUTION
 
     @classmethod
     def from_json(cls, body: dict) -> "Result":
@@ -36,14 +42,15 @@ class Result:
         d = np.column_stack([_array(v) for v in derived.values()]) if derived else np.zeros((len(t), 0))
         return cls(body.get("id", ""), t, y, d, list(states), list(derived), body.get("outcome", ""),
                    body.get("message", ""), body.get("report") or {}, body.get("model") or {},
-                   body.get("caution", ""))
+                   body.get("caution") or CAUTION)
 
     @classmethod
     def from_npz(cls, job_id: str, data: bytes) -> "Result":
-        """From the server's .npz (arrays only; the report comes with the JSON form)."""
+        """From the server's .npz (arrays and the caution; the report comes with the JSON form)."""
         with np.load(io.BytesIO(data), allow_pickle=False) as z:
+            caution = str(z["caution"]) if "caution" in z.files else CAUTION
             return cls(job_id, z["t"], z["y"], z["derived"], [str(s) for s in z["state_names"]],
-                       [str(s) for s in z["derived_names"]])
+                       [str(s) for s in z["derived_names"]], caution=caution)
 
     def __getitem__(self, name: str) -> np.ndarray:
         """The column of a state or derived quantity by name (``"t"`` for the times)."""

@@ -3,7 +3,7 @@
   'use strict';
   const PALETTE = ['#0e7a6a', '#3a78c9', '#d0582b', '#8a4fbf', '#c79a1d', '#c2417a', '#2f9c4f',
                    '#5b6478', '#1aa3b8', '#9b5b2c', '#6a7fdb', '#b33a3a'];
-  const METHOD_COLORS = { dopri5: '#e7a13a', radau5: '#3a78c9', rodas: '#8a4fbf' };
+  const METHOD_COLORS = { dormand_prince_54: '#e7a13a', radau_iia_5: '#3a78c9', rosenbrock_4: '#8a4fbf', bdf: '#3a9a6a' };
   const MAX_POINTS = 6000;   // drawn per series; the full data stays in the downloads
 
   // Indices to draw: per bucket the first point plus each series' min and max (keeps spikes).

@@ -83,7 +83,7 @@
   function scheduleCheck() { clearTimeout(timer); timer = setTimeout(check, 400); paintGutter(); }
 
   async function loadExample() {
-    const resp = await fetch('/ui/examples/lakeside_demo.json', { cache: 'no-store' });
+    const resp = await fetch('/ui/examples/tarnwhistle_demo.json', { cache: 'no-store' });
     if (!resp.ok) { setState('the demo spec is not installed on this server', false); return; }
     $('spec').value = await resp.text();
     scheduleCheck();

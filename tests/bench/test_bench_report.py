@@ -3,6 +3,7 @@ import json
 import math
 
 import numpy as np
+import pytest
 
 from bench import report
 from bench.references import CACHE
@@ -60,7 +61,7 @@ def test_markdown_lists_every_solver_with_its_status():
 def test_records_in_the_latest_results_have_the_documented_fields():
     path = CACHE.parent / "latest.json"
     if not path.exists():
-        return  # nothing run yet on this machine
+        pytest.skip("no benchmark run on this machine yet (bench/results/latest.json is made by make bench)")
     data = json.loads(path.read_text())
     assert {"cpu", "python", "numpy", "scipy", "numba", "date"} <= set(data["machine"])
     for rec in data["records"]:
@@ -71,9 +72,11 @@ def test_records_in_the_latest_results_have_the_documented_fields():
 
 
 def test_cached_references_agree_with_published_end_values():
-    # Test Set for IVP Solvers end values (from memory) vs SciPy Radau at rtol 1e-12
+    # Test Set for IVP Solvers end values (from memory) vs SciPy Radau at rtol 1e-12. The Van der
+    # Pol values are those of the scaled form (VDPOL, eps = 1e-6, t = 2; bench/problems.py), not
+    # of the unscaled examples/models/vanderpol.json.
     if not CACHE.exists():
-        return
+        pytest.skip("no reference cache yet (bench/results/references.json is made by make bench)")
     cache = json.loads(CACHE.read_text())
     for name in ("robertson", "hires", "vanderpol"):
         problem = PR.build(name)

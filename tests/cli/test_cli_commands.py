@@ -10,7 +10,7 @@ from cli.main import main, parser
 from cli.report import format_report
 from tests.conftest import example_path
 
-DEMO = str(example_path("jobs", "lakeside_demo.json"))
+DEMO = str(example_path("jobs", "tarnwhistle_demo.json"))
 JOB_COMMANDS = ["submit", "watch", "result", "list", "cancel", "report", "validate",
                 "up", "redis", "api", "worker", "warm"]
 
@@ -65,9 +65,9 @@ def test_validate_refuses_non_json_and_missing_files(tmp_path):
 
 def test_the_report_reads_as_tables():
     result = {"outcome": "succeeded", "message": "integrated to the end of the span", "report": {
-        "accepted_steps": 120, "rejected_steps": 3, "rhs_evaluations": 900, "steps_per_method": {"dopri5": 20, "radau5": 100},
-        "seconds_per_method": {"dopri5": 0.01, "radau5": 0.2},
-        "switches": [{"t": 0.5, "from": "dopri5", "to": "radau5", "h": 1e-3, "rho": 3.2e4,
+        "accepted_steps": 120, "rejected_steps": 3, "rhs_evaluations": 900, "steps_per_method": {"dormand_prince_54": 20, "radau_iia_5": 100},
+        "seconds_per_method": {"dormand_prince_54": 0.01, "radau_iia_5": 0.2},
+        "switches": [{"t": 0.5, "from": "dormand_prince_54", "to": "radau_iia_5", "h": 1e-3, "rho": 3.2e4,
                       "explicit_step": 1.0e-4, "reason": "stiffness_detected"}]}}
     result["report"]["t_reached"] = 10.0
     result["report"]["machine_code"] = {"used": False, "seconds": 0.0,
@@ -75,7 +75,7 @@ def test_the_report_reads_as_tables():
     text = format_report(result)
     assert "accepted steps" in text and "120" in text
     assert "interpreter (the job asked for the interpreter)" in text
-    assert "Method phases" in text and text.index("dopri5", text.index("Method phases")) < text.index("radau5", text.index("Method phases"))
+    assert "Method phases" in text and text.index("dormand_prince_54", text.index("Method phases")) < text.index("radau_iia_5", text.index("Method phases"))
     assert "Method switches" in text and "stiffness_detected" in text
     lines = text.splitlines()
     header = next(i for i, line in enumerate(lines) if line.startswith("t ") and "reason" in line)
@@ -91,8 +91,11 @@ def test_an_unreachable_server_exits_5(capsys):
 def test_submit_wait_save_report_list_and_result(stack, tmp_path, capsys):
     out = tmp_path / "demo.csv"
     assert main(["submit", DEMO, "--server", stack.base, "--wait", "-q", "-o", str(out)]) == common.OK
-    job_id = capsys.readouterr().out.strip()
-    rows = list(csv.reader(out.open()))
+    streams = capsys.readouterr()
+    job_id = streams.out.strip()
+    assert "caution: Numerical results are approximations" in streams.err
+    caution, *rows = list(csv.reader(out.open()))
+    assert caution[0].startswith("# caution: Numerical results are approximations")
     assert rows[0] == ["t", "S", "H2", "P", "Byp", "T", "k2", "r1", "r2", "feed", "heat"] and len(rows) == 122
     assert main(["report", job_id, "--server", stack.base]) == common.OK
     assert "accepted steps" in capsys.readouterr().out
@@ -108,7 +111,7 @@ def test_submit_wait_save_report_list_and_result(stack, tmp_path, capsys):
 def test_exit_codes_for_invalid_specs_missing_jobs_and_failed_jobs(stack, tmp_path, capsys, monkeypatch):
     monkeypatch.setenv("STIFFLANE_URL", stack.base)
     spec = {"model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}}, "span": [0, 1000],
-            "method": "dopri5", "limits": {"max_steps": 5}}
+            "method": "dormand_prince_54", "limits": {"max_steps": 5}}
     path = tmp_path / "short.json"
     path.write_text(json.dumps(spec))
     assert main(["submit", str(path), "--wait", "-q"]) == common.JOB_NOT_SUCCEEDED
@@ -123,7 +126,7 @@ def test_cancel_a_running_job(stack, tmp_path, capsys, monkeypatch):
     monkeypatch.setenv("STIFFLANE_URL", stack.base)
     spec = {"label": "cli long run", "model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}},
             "span": [0, 1e7], "output": {"count": 3}, "tolerance": {"rtol": 1e-12, "atol": 1e-14},
-            "method": "dopri5", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120}}
+            "method": "dormand_prince_54", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120}}
     path = tmp_path / "long.json"
     path.write_text(json.dumps(spec))
     assert main(["submit", str(path)]) == common.OK
@@ -162,7 +165,9 @@ def test_batch_submit_wait_table_and_stats(stack, tmp_path, capsys, monkeypatch)
     out = tmp_path / "sweep.csv"
     assert main(["batch", "submit", str(spec), "--wait", "-q", "-o", str(out)]) == common.OK
     batch_id = capsys.readouterr().out.strip()
-    rows = list(csv.DictReader(out.open()))
+    with out.open() as f:
+        assert f.readline().startswith("# caution: ")
+        rows = list(csv.DictReader(f))
     assert [r["outcome"] == "succeeded" for r in rows] == [True, True, True, False]
     assert main(["batch", "stats", batch_id]) == common.OK
     assert "final_y" in capsys.readouterr().out

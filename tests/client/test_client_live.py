@@ -9,7 +9,7 @@ from tests.conftest import example_path
 
 pytestmark = pytest.mark.e2e
 
-DEMO = example_path("jobs", "lakeside_demo.json")
+DEMO = example_path("jobs", "tarnwhistle_demo.json")
 
 # y' = -k y with k = 3, y(0) = 2: y(t) = 2 exp(-3 t) (closed form)
 DECAY = Model(title="decay", states={"y": 2.0}, parameters={"k": {"value": 3.0}}, ddt={"y": "-k * y"})
@@ -67,7 +67,7 @@ def test_resubmitting_with_one_idempotency_key_creates_one_job(client):
 
 def test_cancel_and_wait_timeout(client):
     spec = job_spec(Model(states={"u": 1.0, "v": 0.0}, ddt={"u": "v", "v": "-u"}), (0, 1e7), count=3,
-                    rtol=1e-12, atol=1e-14, method="dopri5", label="client long run",
+                    rtol=1e-12, atol=1e-14, method="dormand_prince_54", label="client long run",
                     limits={"max_steps": 100_000_000, "max_wall_seconds": 120})
     job = client.submit(spec)
     with pytest.raises(WaitTimeout):

@@ -96,12 +96,12 @@ def test_a_bearer_key_is_sent_when_given(monkeypatch):
 
 def test_a_model_in_python_data_becomes_a_job_spec():
     model = Model(title="decay", states={"A": 1.0}, parameters={"k": {"value": 2.0}}, ddt={"A": "-k * A"})
-    spec = job_spec(model, (0, 5), count=11, spacing="log", rtol=1e-8, method="radau5", label="demo",
+    spec = job_spec(model, (0, 5), count=11, spacing="log", rtol=1e-8, method="radau_iia_5", label="demo",
                     machine_code="always")
     assert spec == {"model": {"states": {"A": 1.0}, "title": "decay", "parameters": {"k": {"value": 2.0}},
                               "ddt": {"A": "-k * A"}},
                     "span": [0.0, 5.0], "output": {"count": 11, "spacing": "log"},
-                    "tolerance": {"rtol": 1e-8}, "method": "radau5", "label": "demo",
+                    "tolerance": {"rtol": 1e-8}, "method": "radau_iia_5", "label": "demo",
                     "machine_code": "always"}
 
 

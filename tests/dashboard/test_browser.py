@@ -12,7 +12,7 @@ import pytest
 from tests.conftest import example_path
 
 pytestmark = pytest.mark.e2e
-DEMO = example_path("jobs", "lakeside_demo.json")
+DEMO = example_path("jobs", "tarnwhistle_demo.json")
 
 
 
@@ -39,7 +39,8 @@ def test_submit_watch_plot_on_log_axes_and_download_csv(browser, stack):
     browser.shot("job")
     with page.expect_download() as info:
         page.click("#downloads [data-fmt=csv]")
-    rows = list(csv.reader(io.StringIO(open(info.value.path()).read())))
+    caution, *rows = list(csv.reader(io.StringIO(open(info.value.path()).read())))
+    assert caution[0].startswith("# caution: ")
     assert rows[0][:6] == ["t", "S", "H2", "P", "Byp", "T"] and len(rows) == 122
     page.goto(stack.base + "/")
     row = page.wait_for_selector(f"tr[data-id='{job_id}']")
@@ -93,7 +94,7 @@ def test_a_stiff_run_shows_its_switches_phases_and_conservation_drift(browser, s
     page.goto(f"{stack.base}/jobs/{job_id}")
     page.wait_for_selector("#switches table", timeout=30_000)
     first = page.inner_text("#switches tbody tr")
-    assert "dopri5" in first and "stiffness_detected" in first
+    assert "dormand_prince_54" in first and "stiffness_detected" in first
     assert page.is_visible("#drift .uplot") and page.is_visible("#stiff .uplot")
     assert "phase" in page.inner_text("#method-legend")
     facts = page.inner_text("#run-facts")  # which evaluation tier ran, and why
@@ -106,7 +107,7 @@ def test_a_stiff_run_shows_its_switches_phases_and_conservation_drift(browser, s
 
 LONG = {"label": "long oscillator (dashboard)", "model": {"states": {"u": 1.0, "v": 0.0}, "ddt": {"u": "v", "v": "-u"}},
         "span": [0.0, 1.0e7], "output": {"count": 3}, "tolerance": {"rtol": 1e-12, "atol": 1e-14},
-        "method": "dopri5", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120}}
+        "method": "dormand_prince_54", "limits": {"max_steps": 100_000_000, "max_wall_seconds": 120}}
 
 
 def test_a_running_job_shows_live_progress_and_can_be_cancelled_from_its_page(browser, stack):

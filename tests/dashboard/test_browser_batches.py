@@ -10,11 +10,11 @@ from tests.conftest import example_path
 pytestmark = pytest.mark.e2e
 
 
-def lakeside_sweep() -> dict:
-    """Invented demo sweep over the Lakeside scenario: gas transfer rate x feed rate (24 members)."""
-    base = json.loads(example_path("jobs", "lakeside_demo.json").read_text())
+def tarnwhistle_sweep() -> dict:
+    """Invented demo sweep over the Tarnwhistle scenario: gas transfer rate x feed rate (24 members)."""
+    base = json.loads(example_path("jobs", "tarnwhistle_demo.json").read_text())
     base.pop("label")
-    return {"label": "Invented demo sweep: Lakeside transfer rate x feed rate", "base": base,
+    return {"label": "Invented demo sweep: Tarnwhistle transfer rate x feed rate", "base": base,
             "grid": {"parameters": {"kLa": {"from": 0.02, "to": 0.12, "count": 6},
                                     "feed_rate": [0.0005, 0.001, 0.002, 0.004]}},
             "summaries": [{"kind": "final", "of": "P"}, {"kind": "final", "of": "Byp"},
@@ -31,7 +31,7 @@ def submit(stack, spec) -> str:
 
 
 def test_a_sweep_page_shows_progress_scatter_histograms_and_sorts(browser, stack):
-    batch_id = submit(stack, lakeside_sweep())
+    batch_id = submit(stack, tarnwhistle_sweep())
     page = browser.page
     page.goto(f"{stack.base}/batches/{batch_id}")
     page.wait_for_selector(".state.succeeded", timeout=180_000)

@@ -42,9 +42,9 @@ def test_the_chart_library_is_vendored_with_its_licence():
 
 
 def test_the_demo_spec_is_served_for_the_submit_page(client):
-    resp = client.get("/ui/examples/lakeside_demo.json")
+    resp = client.get("/ui/examples/tarnwhistle_demo.json")
     assert resp.status_code == 200 and resp.mimetype == "application/json"
-    assert json.loads(resp.data) == json.loads(example_path("jobs", "lakeside_demo.json").read_text())
+    assert json.loads(resp.data) == json.loads(example_path("jobs", "tarnwhistle_demo.json").read_text())
 
 
 def test_paths_outside_the_static_folders_are_not_served(client):

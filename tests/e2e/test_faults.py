@@ -86,7 +86,7 @@ def test_a_runaway_explicit_solve_ends_failed_with_diagnostics(faulty):
                   # Robertson (1966), as printed in Hairer & Wanner II, sec. IV.1
                   "ddt": {"y1": "-0.04*y1 + 1e4*y2*y3", "y2": "0.04*y1 - 1e4*y2*y3 - 3e7*y2^2",
                           "y3": "3e7*y2^2"}},
-        "span": [0.0, 1.0e11], "output": {"count": 2}, "method": "dopri5",
+        "span": [0.0, 1.0e11], "output": {"count": 2}, "method": "dormand_prince_54",
         "limits": {"max_steps": 100_000_000, "max_wall_seconds": 3},
     }
     started = time.time()

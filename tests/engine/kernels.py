@@ -64,7 +64,9 @@ ROBERTSON = {
             "y3": "k2*y2^2"},
 }
 
-# HIRES, Schaefer 1975; Hairer & Wanner II, sec. IV.10; Test Set for IVP Solvers.
+# HIRES, Schaefer 1975; Hairer & Wanner II, sec. IV.10; Test Set for IVP Solvers (Mazzia &
+# Magherini), problem HIRES. Coefficients, initial values and the end time 321.8122 as printed
+# there; recalled from memory (the tests that use them also check against SciPy at tight rtol).
 HIRES = {
     "title": "HIRES",
     "states": {"y1": 1.0, "y2": 0.0, "y3": 0.0, "y4": 0.0, "y5": 0.0, "y6": 0.0,
@@ -89,7 +91,9 @@ VAN_DER_POL = {
     "ddt": {"x": "v", "v": "mu*(1 - x^2)*v - x"},
 }
 
-# Arenstorf orbit, Hairer, Norsett & Wanner I, sec. II.0, eq. (0.1); periodic.
+# Arenstorf orbit, Hairer, Norsett & Wanner I, sec. II.0, eqs. (0.1)-(0.2): mu = 0.012277471,
+# y(0) = (0.994, 0, 0, -2.00158510637908252240537862224) and the period
+# 17.0652165601579625588917206249, all as printed there; recalled from memory.
 ARENSTORF = {
     "title": "Arenstorf",
     "states": {"y1": 0.994, "y2": 0.0, "v1": 0.0,
@@ -144,7 +148,9 @@ class Prepared:
 
 def brusselator_2d(N: int, alpha: float = 0.1) -> Prepared:
     """2-D Brusselator on an N x N periodic grid (Hairer & Wanner II, sec. IV.10,
-    BRUSS-2D, here without the source term), hand-built for large sparse tests:
+    BRUSS-2D, here without the source term), hand-built for large sparse tests. The constants
+    (1, 4.4, 3.4, alpha = 0.1) and the starting profiles below are those printed there;
+    recalled from memory:
 
         u' = 1 + u^2 v - 4.4 u + alpha N^2 (five-point Laplacian of u)
         v' = 3.4 u - u^2 v     + alpha N^2 (five-point Laplacian of v)

@@ -21,12 +21,12 @@ def test_stiff_problems_get_implicit_phases(spec, t_end, rtol):
     sol = run(spec, t_end, rtol=rtol, atol=rtol * 1e-4)
     r = sol.report
     assert sol.outcome == SUCCEEDED
-    implicit = r["steps_per_method"]["radau5"] + r["steps_per_method"]["rodas"]
+    implicit = r["steps_per_method"]["radau_iia_5"] + r["steps_per_method"]["rosenbrock_4"]
     assert implicit > 0
     assert r["switches"][0]["reason"] == "stiffness_detected"
-    assert r["switches"][0]["from"] == "dopri5"
-    # Radau5 below rtol 5e-4, Rodas at looser tolerances (the policy default).
-    assert r["switches"][0]["to"] == ("radau5" if rtol < 5e-4 else "rodas")
+    assert r["switches"][0]["from"] == "dormand_prince_54"
+    # Radau IIA below rtol 5e-4, Rosenbrock at looser tolerances (the policy default).
+    assert r["switches"][0]["to"] == ("radau_iia_5" if rtol < 5e-4 else "rosenbrock_4")
     # Work ceilings: a broken stiff path would take explicit-sized steps.
     assert r["accepted_steps"] < 4000
     assert r["explicit_steps_needed"] > 10 * r["accepted_steps"] or spec is K.HIRES
@@ -38,12 +38,12 @@ def test_nonstiff_problems_stay_explicit(spec, t_end, rtol):
     sol = run(spec, t_end, rtol=rtol, atol=rtol * 1e-3)
     r = sol.report
     assert sol.outcome == SUCCEEDED
-    assert r["switch_count"] == 0 and r["methods_used"] == ["dopri5"]
+    assert r["switch_count"] == 0 and r["methods_used"] == ["dormand_prince_54"]
     assert r["lu_factorizations"] == 0
 
 
-def dopri5_stability_polynomial(z):
-    # Stability function of the 5th-order DOPRI5 solution (Hairer, Norsett &
+def dormand_prince_54_stability_polynomial(z):
+    # Stability function of the 5th-order Dormand-Prince solution (Hairer, Norsett &
     # Wanner I, sec. IV.2 / Hairer & Wanner II, sec. IV.2; from memory):
     # the degree-5 Taylor polynomial plus z^6/600.
     return 1 + z + z**2 / 2 + z**3 / 6 + z**4 / 24 + z**5 / 120 + z**6 / 600
@@ -52,11 +52,11 @@ def dopri5_stability_polynomial(z):
 def real_axis_boundary():
     """Largest x with |R(-s)| <= 1 on [0, x], by bisection on a fine scan."""
     s = np.linspace(0.0, 5.0, 50001)
-    bad = np.nonzero(np.abs(dopri5_stability_polynomial(-s)) > 1 + 1e-12)[0]
+    bad = np.nonzero(np.abs(dormand_prince_54_stability_polynomial(-s)) > 1 + 1e-12)[0]
     lo, hi = s[bad[0] - 1], s[bad[0]]
     for _ in range(60):
         mid = 0.5 * (lo + hi)
-        lo, hi = (mid, hi) if abs(dopri5_stability_polynomial(-mid)) <= 1 else (lo, mid)
+        lo, hi = (mid, hi) if abs(dormand_prince_54_stability_polynomial(-mid)) <= 1 else (lo, mid)
     return lo
 
 
@@ -65,7 +65,7 @@ def test_engine_tableau_has_the_published_stability_polynomial():
     A, b = DP_A[:6, :6], DP_A[6, :6]
     for z in (-0.5, -1.7, -3.0, 0.3):
         r = 1 + z * b @ np.linalg.solve(np.eye(6) - z * A, np.ones(6))
-        assert r == pytest.approx(dopri5_stability_polynomial(z), rel=1e-12)
+        assert r == pytest.approx(dormand_prince_54_stability_polynomial(z), rel=1e-12)
 
 
 def test_report_explicit_step_matches_stability_boundary():
@@ -84,7 +84,7 @@ def test_report_explicit_step_matches_stability_boundary():
         assert s["dominant_eigenvalues"][0][0] == pytest.approx(-3000.0, rel=1e-9)
     # In-run estimates (power iteration while implicit) agree within 5 %.
     hist = r["step_history"]
-    implicit = [e for e, m in zip(hist["explicit_step"], hist["method"]) if m != "dopri5"]
+    implicit = [e for e, m in zip(hist["explicit_step"], hist["method"]) if m != "dormand_prince_54"]
     assert implicit and np.allclose(implicit, expected, rtol=0.05)
     # A stability-bound explicit solver needs about 5 / h_stab steps.
     assert r["explicit_steps_needed"] == pytest.approx(5.0 / expected, rel=0.1)
@@ -97,10 +97,10 @@ def test_policy_is_parameterised():
     assert sol.report["switch_count"] == 0
     radau_always = SwitchPolicy(radau_below_rtol=1.0)
     sol = run(K.ROBERTSON, 1e3, rtol=1e-6, atol=1e-10, policy=radau_always)
-    assert sol.report["switches"][0]["to"] == "radau5"
-    rodas_always = SwitchPolicy(radau_below_rtol=0.0)
-    sol = run(K.ROBERTSON, 1e3, rtol=1e-6, atol=1e-10, policy=rodas_always)
-    assert sol.report["switches"][0]["to"] == "rodas"
+    assert sol.report["switches"][0]["to"] == "radau_iia_5"
+    rosenbrock_4_always = SwitchPolicy(radau_below_rtol=0.0)
+    sol = run(K.ROBERTSON, 1e3, rtol=1e-6, atol=1e-10, policy=rosenbrock_4_always)
+    assert sol.report["switches"][0]["to"] == "rosenbrock_4"
 
 
 def test_switch_log_rows_carry_the_numbers():
@@ -110,7 +110,7 @@ def test_switch_log_rows_carry_the_numbers():
     for row in r["switches"]:
         assert set(row) == {"t", "from", "to", "h", "rho", "explicit_step", "reason"}
         assert row["rho"] > 0 and row["h"] > 0
-    back = [w for w in r["switches"] if w["to"] == "dopri5"]
+    back = [w for w in r["switches"] if w["to"] == "dormand_prince_54"]
     assert back and all(w["reason"] == "explicit_step_competitive" for w in back)
     assert all(w["explicit_step"] >= w["h"] for w in back)
 

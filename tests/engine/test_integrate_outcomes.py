@@ -9,7 +9,7 @@ from engine import integrate as I
 from engine.integrate import SolverOptions, integrate
 from tests.engine import kernels as K
 
-ALL = ["dopri5", "radau5", "rodas", "auto"]
+ALL = ["dormand_prince_54", "radau_iia_5", "rosenbrock_4", "auto"]
 
 
 def solve(spec, t_end, t_out=None, monitor=None, conservation=None, **kw):
@@ -50,7 +50,7 @@ def test_event_direction_filter_and_repeated_crossings():
     spec = {"states": {"x": 1.0, "v": 0.0}, "ddt": {"x": "v", "v": "-x"},
             "events": [{"name": "any", "when": "x", "direction": "both"},
                        {"name": "up", "when": "x", "direction": "rising"}]}
-    sol = solve(spec, 10.0, method="dopri5", rtol=1e-10, atol=1e-12)
+    sol = solve(spec, 10.0, method="dormand_prince_54", rtol=1e-10, atol=1e-12)
     assert sol.outcome == I.SUCCEEDED and sol.terminal_event is None
     any_t = sol.event_t[sol.event_index == 0]
     up_t = sol.event_t[sol.event_index == 1]
@@ -69,7 +69,7 @@ def test_cancellation_via_monitor():
         return True
 
     # An explicit method on a stiff problem over a long span would run for hours.
-    sol = solve(K.ROBERTSON, 1e11, method="dopri5", rtol=1e-6, atol=1e-10,
+    sol = solve(K.ROBERTSON, 1e11, method="dormand_prince_54", rtol=1e-6, atol=1e-10,
                 max_steps=10**12, monitor=monitor)
     assert sol.outcome == I.CANCELLED
     assert calls and 0.0 <= calls[0] <= 1.0
@@ -77,7 +77,7 @@ def test_cancellation_via_monitor():
 
 
 def test_wall_time_limit():
-    sol = solve(K.ROBERTSON, 1e11, method="dopri5", rtol=1e-6, atol=1e-10,
+    sol = solve(K.ROBERTSON, 1e11, method="dormand_prince_54", rtol=1e-6, atol=1e-10,
                 max_steps=10**12, max_wall_seconds=0.3)
     assert sol.outcome == I.TIME_LIMIT
     assert "max_wall_seconds" in sol.message
@@ -116,10 +116,10 @@ def test_tolerance_unreachable():
 def test_blow_up_is_step_underflow():
     # y' = y^2, y(0) = 1 has y = 1 / (1 - t): a singularity at t = 1.
     spec = {"states": {"y": 1.0}, "ddt": {"y": "y^2"}}
-    sol = solve(spec, 2.0, method="dopri5")
+    sol = solve(spec, 2.0, method="dormand_prince_54")
     assert sol.outcome in (I.STEP_UNDERFLOW, I.NON_FINITE)
     assert sol.t_reached == pytest.approx(1.0, abs=1e-3)
-    sol = solve(spec, 2.0, method="radau5")
+    sol = solve(spec, 2.0, method="radau_iia_5")
     assert sol.outcome in (I.STEP_UNDERFLOW, I.NEWTON_FAILURE, I.NON_FINITE)
     assert sol.t_reached == pytest.approx(1.0, abs=1e-3)
 
@@ -141,7 +141,7 @@ def test_outputs_aux_conservation_and_counters():
     m = K.model(K.ARENSTORF)
     times = np.linspace(0, 2.0, 21)
     sol = integrate(m.kernel, m.p, m.y0, (0.0, 2.0), times,
-                    SolverOptions(method="dopri5", rtol=1e-8, atol=1e-10))
+                    SolverOptions(method="dormand_prince_54", rtol=1e-8, atol=1e-10))
     mu = 0.012277471
     d1 = ((sol.y[:, 0] + mu) ** 2 + sol.y[:, 1] ** 2) ** 1.5
     np.testing.assert_allclose(sol.aux[:, 0], d1, rtol=1e-12)
@@ -156,7 +156,7 @@ def test_outputs_aux_conservation_and_counters():
 @pytest.mark.parametrize("method", ALL)
 def test_report_is_json_safe_and_named(method):
     sol = solve(K.VAN_DER_POL, 3000.0, np.linspace(0, 3000, 50), method=method,
-                max_steps=3000 if method == "dopri5" else 100_000)
+                max_steps=3000 if method == "dormand_prince_54" else 100_000)
     text = json.dumps(sol.report, allow_nan=False)
     r = json.loads(text)
     for key in ("accepted_steps", "rejected_steps", "rhs_evaluations", "jacobian_evaluations",

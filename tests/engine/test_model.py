@@ -59,8 +59,8 @@ def test_jacobian_of_every_example_matches_central_differences():
                                        err_msg=f"{name}, column {j}")
 
 
-def test_lakeside_demo_has_derived_events_and_feed():
-    prepared = prepare(load("lakeside_hydrogenation.json"))
+def test_tarnwhistle_demo_has_derived_events_and_feed():
+    prepared = prepare(load("tarnwhistle_hydrogenation.json"))
     assert prepared.aux_names == ("k2", "r1", "r2", "feed", "heat")
     assert prepared.event_names == ("hot_spot", "substrate_low")
     assert list(prepared.event_directions) == [1, -1]
@@ -185,8 +185,8 @@ def test_parameter_jacobian_of_robertson():
 
 
 def test_fixed_state_cannot_have_ddt_and_non_object_model():
-    model = variant(("states", "A"), {"initial": 1.0, "fixed": True})
-    assert "fixed" in issues_at(model)[("ddt", "A")].message
+    model = variant(("states", "A"), {"initial": 1.0, "clamped": True})
+    assert "clamped" in issues_at(model)[("ddt", "A")].message
     assert check_model([1, 2])[0].path == ()
     assert check_model({})[0].path == ("states",)
 
@@ -214,7 +214,7 @@ def test_parse_and_prepare_raise_no_dangerous_audit_events():
             seen.append(event)
 
     sys.addaudithook(hook)  # cannot be removed; it only records while active
-    model = load("lakeside_hydrogenation.json")
+    model = load("tarnwhistle_hydrogenation.json")
     model["title"] = "audit hook run"  # new content hash: not served from the cache
     hostile = variant(("ddt", "A"), "__import__('os').system('true')")
     active[0] = True

@@ -105,7 +105,7 @@ def test_arrhenius_matches_a_hand_computation():
 
 @pytest.mark.parametrize("unit, ea, ea_over_r", [
     ("J/mol", 8314.462618, 1000.0), ("kJ/mol", 8.314462618, 1000.0),
-    ("cal/mol", 1000.0, 4184.0 / 8.314462618),  # thermochemical calorie, 4.184 J
+    ("cal/mol", 1000.0, 4184.0 / 8.314462618),  # thermochemical calorie, exactly 4.184 J (NIST SP 811, App. B; ISO 80000-5)
     ("kcal/mol", 1.0, 4184.0 / 8.314462618), ("K", 1000.0, 1000.0),
 ])
 def test_activation_energy_units(unit, ea, ea_over_r):
@@ -125,14 +125,14 @@ def test_reversible_fractional_and_custom_rates():
     np.testing.assert_allclose(rhs(prepare(model), [A, B, C]), expected, rtol=1e-14)
 
 
-def test_fixed_species_and_states_with_their_own_ddt_are_left_out_of_laws():
-    model = {"states": {"E": 1.0, "S": 1.0, "ES": 0.0, "P": 0.0, "W": {"initial": 55.0, "fixed": True}},
+def test_clamped_species_and_states_with_their_own_ddt_are_left_out_of_laws():
+    model = {"states": {"E": 1.0, "S": 1.0, "ES": 0.0, "P": 0.0, "W": {"initial": 55.0, "clamped": True}},
              "ddt": {"P": "-0.1*P"},
              "reactions": [{"equation": "E + S <=> ES", "k": 1.0, "k_reverse": 0.5},
                            {"equation": "ES + W -> E + P", "k": 2.0}]}
     prepared = prepare(model)
     out = rhs(prepared, [1.0, 1.0, 0.5, 0.2, 55.0])
-    assert out[4] == 0.0  # fixed: held constant although it reacts
+    assert out[4] == 0.0  # clamped: held constant although it reacts
     labels = set(prepared.conservation_labels)
     assert labels == {"E + ES"}  # enzyme moiety; S + ES + P broken by P's own ddt term
     for row in prepared.conservation:
@@ -153,7 +153,7 @@ def test_conservation_rows_are_left_null_vectors():
 def test_structural_rates_agree_with_the_symbolic_jacobian_on_a_mixed_network():
     """The right-hand side runs reactions structurally; the Jacobian comes from the trees.
     Central differences of the one must match the other (invented network)."""
-    model = {"states": {"A": 0.7, "B": 0.4, "C": 0.3, "D": 0.2, "T": 400.0, "W": {"initial": 2.0, "fixed": True}},
+    model = {"states": {"A": 0.7, "B": 0.4, "C": 0.3, "D": 0.2, "T": 400.0, "W": {"initial": 2.0, "clamped": True}},
              "parameters": {"k1": 0.3, "Ea": 20.0},
              "derived": {"kd": "k1 * exp(-1000/T)"},
              "ddt": {"T": "-0.01*(T - 390)", "A": "0.05*step(t - 1)"},

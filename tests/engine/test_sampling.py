@@ -42,6 +42,8 @@ def test_the_same_seed_reproduces_exactly_and_another_seed_differs():
 
 
 def test_latin_hypercube_hits_every_stratum_of_every_variable_once():
+    # The defining property of a Latin hypercube sample: each of the n equal-probability strata
+    # of every variable holds exactly one point (McKay, Beckman & Conover 1979, Technometrics 21(2)).
     n = 500
     u = sampling.unit_samples("latin_hypercube", n, 4, seed=7)
     for j in range(4):

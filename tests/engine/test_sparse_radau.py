@@ -2,7 +2,8 @@
 
 Oracles: SciPy's solve_ivp at rtol 1e-10/1e-11 on the same right-hand side and
 sparsity (2-D Brusselator of Hairer & Wanner II, sec. IV.10; 1-D Brusselator of
-Hairer & Wanner II, sec. IV.1, eq. (1.6')), and closed-form solutions of linear
+Hairer & Wanner II, sec. IV.1, eq. (1.6'); parameters as printed there, recalled from
+memory), and closed-form solutions of linear
 decays for events and non-negativity.
 """
 import math
@@ -47,13 +48,13 @@ def bruss1d():
 
 def _check_report(r):
     assert r["sparse_linear_algebra"] is True
-    assert r["methods_used"] == ["radau5"]
+    assert r["methods_used"] == ["radau_iia_5"]
     assert r["lu_factorizations"] < r["accepted_steps"]  # factors are reused
-    assert r["warnings"] == []  # radau5 ran as asked
+    assert r["warnings"] == []  # radau_iia_5 ran as asked
 
 
 @pytest.mark.parametrize("rtol", [1e-4, 1e-6, 1e-8])
-def test_pinned_radau5_on_the_2d_brusselator(bruss2d, rtol):
+def test_pinned_radau_iia_5_on_the_2d_brusselator(bruss2d, rtol):
     # Oracle: SciPy Radau at rtol 1e-11. A one-step collocation method keeps its
     # global error near the requested tolerance (Hairer & Wanner II, sec. IV.8):
     # within 10x, at every state.
@@ -61,7 +62,7 @@ def test_pinned_radau5_on_the_2d_brusselator(bruss2d, rtol):
     assert wants_sparse(b.kernel)
     atol = 1e-3 * rtol
     sol = integrate(b.kernel, b.p, b.y0, (0.0, 2.0), np.linspace(0, 2, 5),
-                    SolverOptions(method="radau5", rtol=rtol, atol=atol))
+                    SolverOptions(method="radau_iia_5", rtol=rtol, atol=atol))
     assert sol.outcome == SUCCEEDED
     _check_report(sol.report)
     err = np.abs(sol.y[-1] - ref) / (atol + rtol * np.abs(ref))
@@ -69,13 +70,13 @@ def test_pinned_radau5_on_the_2d_brusselator(bruss2d, rtol):
 
 
 @pytest.mark.parametrize("rtol", [1e-4, 1e-6])
-def test_pinned_radau5_on_the_1d_brusselator(bruss1d, rtol):
+def test_pinned_radau_iia_5_on_the_1d_brusselator(bruss1d, rtol):
     # Oracle: SciPy Radau at rtol 1e-10 (tests/engine/test_sparse_scipy.py), at two
     # output times; within 10x the requested tolerance at every state.
     m, ref = bruss1d
     atol = 1e-3 * rtol
     sol = integrate(m.kernel, m.p, m.y0, (0.0, T_END_1D), np.array([5.0, T_END_1D]),
-                    SolverOptions(method="radau5", rtol=rtol, atol=atol))
+                    SolverOptions(method="radau_iia_5", rtol=rtol, atol=atol))
     assert sol.outcome == SUCCEEDED
     r = sol.report
     _check_report(r)
@@ -106,12 +107,12 @@ def test_terminal_event_on_the_sparse_path():
     assert wants_sparse(m.kernel)
     rtol = 1e-9
     sol = integrate(m.kernel, m.p, m.y0, (0.0, 5.0), np.linspace(0, 5, 51),
-                    SolverOptions(method="radau5", rtol=rtol, atol=1e-13,
+                    SolverOptions(method="radau_iia_5", rtol=rtol, atol=1e-13,
                                   event_directions=m.event_directions,
                                   event_terminal=m.event_terminal))
     t_star = math.log(4.0) / 2.0
     assert sol.outcome == SUCCEEDED and sol.terminal_event == 0
-    assert sol.report["methods_used"] == ["radau5"]
+    assert sol.report["methods_used"] == ["radau_iia_5"]
     assert sol.t_reached == pytest.approx(t_star, rel=100 * rtol)
     assert sol.event_t[0] == pytest.approx(t_star, rel=100 * rtol)
     assert sol.event_y[0, 0] == pytest.approx(0.25, rel=100 * rtol)
@@ -127,9 +128,9 @@ def test_nonnegative_states_on_the_sparse_path():
     rtol, atol = 1e-3, 1e-6
     t_out = np.linspace(0, 3, 31)
     sol = integrate(m.kernel, m.p, m.y0, (0.0, 3.0), t_out,
-                    SolverOptions(method="radau5", rtol=rtol, atol=atol, nonnegative=True))
+                    SolverOptions(method="radau_iia_5", rtol=rtol, atol=atol, nonnegative=True))
     assert sol.outcome == SUCCEEDED
-    assert sol.report["methods_used"] == ["radau5"]
+    assert sol.report["methods_used"] == ["radau_iia_5"]
     assert sol.report["sparse_linear_algebra"] is True
     assert np.all(sol.y >= 0.0)
     exact = np.exp(-np.outer(t_out, rates))
@@ -144,7 +145,7 @@ def test_non_finite_rhs_on_the_sparse_path():
     m = K.model(spec)
     assert wants_sparse(m.kernel)
     sol = integrate(m.kernel, m.p, m.y0, (0.0, 2.0), np.array([2.0]),
-                    SolverOptions(method="radau5", rtol=1e-6, atol=1e-10))
+                    SolverOptions(method="radau_iia_5", rtol=1e-6, atol=1e-10))
     assert sol.outcome == NON_FINITE
     assert sol.t_reached == pytest.approx(1.0, abs=1e-6)
     assert np.all(np.isfinite(sol.y_reached))

@@ -124,8 +124,10 @@ def test_exports_as_csv_and_npz(bclient, bstore):
     drain(bstore, batch_id)
     csv = bclient.get(f"/v1/batches/{batch_id}/table?format=csv")
     lines = csv.get_data(as_text=True).splitlines()
-    assert lines[0] == "index,k,final_y,integral_y,half_life,outcome,message" and len(lines) == 4
+    assert lines[0].startswith("# caution: Numerical results are approximations")
+    assert lines[1] == "index,k,final_y,integral_y,half_life,outcome,message" and len(lines) == 5
     npz = np.load(io.BytesIO(bclient.get(f"/v1/batches/{batch_id}/table?format=npz").data))
+    assert str(npz["caution"]).startswith("Numerical results are approximations")
     assert npz["summaries"].shape == (3, 3) and npz["trajectories"].shape == (3, 5, 1)
     assert np.allclose(npz["trajectories"][:, :, 0], np.exp(-np.outer([1, 2, 3], npz["times"])), rtol=1e-6)
     assert bclient.get(f"/v1/batches/{batch_id}/table?format=xml").status_code == 406

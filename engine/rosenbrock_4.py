@@ -1,7 +1,7 @@
-"""Rodas4: a stiffly accurate Rosenbrock method of order 4(3), 6 stages.
+"""Rosenbrock 4(3): a stiffly accurate Rosenbrock method of order 4(3), 6 stages.
 
 Hairer & Wanner, Solving ODEs II, sec. VI.4 (coefficients of the published
-RODAS code, set 1; see ``engine.tableaux``). Each step uses one Jacobian and one
+Rosenbrock code of Hairer & Wanner, set 1; see ``engine.tableaux``). Each step uses one Jacobian and one
 LU factorisation of (1/(gamma h) I - J); no Newton iteration. The embedded
 error estimate is the last stage increment; dense output of order 3.
 """
@@ -82,7 +82,7 @@ def dense(cont, s, out):
 
 @njit(cache=True, nogil=True, _nrt=False)
 def step_factor(h, h_old, err, err_old, accepted, first):
-    """Predictive controller of the published RODAS code (safety 0.9,
+    """Predictive controller of Hairer & Wanner's published Rosenbrock code (safety 0.9,
     factor in [0.2, 6]). Returns h_new / h."""
     if not (err == err):
         return 0.2

@@ -86,7 +86,7 @@ def dense(cont, theta, out):
 
 @njit(cache=True, nogil=True, _nrt=False)
 def step_factor(err, err_old, last_rejected):
-    """PI controller of the published DOPRI5 code (beta = 0.04, safety 0.9).
+    """PI controller of Hairer, Norsett & Wanner's published Dormand-Prince code (beta = 0.04, safety 0.9).
 
     Returns the factor h_new / h.
     """
