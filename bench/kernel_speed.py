@@ -1,7 +1,7 @@
 """Speed of the register-machine kernel against hand-written code.
 
 Prints a table: nanoseconds per right-hand-side evaluation for the model
-kernel (engine.vm), hand-written numba and hand-written numpy called from
+kernel (engine.kernels.vm), hand-written numba and hand-written numpy called from
 Python, and prepare() times. Run: ``PYTHONPATH=. python bench/kernel_speed.py``.
 The random mechanisms are invented test data (seeded), not chemistry.
 """
@@ -14,8 +14,8 @@ from pathlib import Path
 import numpy as np
 from numba import njit
 
-from engine import vm
-from engine.model import _CACHE as model_cache, prepare
+from engine.kernels import vm
+from engine.model import clear_cache, prepare
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -198,7 +198,7 @@ def main():
         model = random_mechanism(n, m, seed=7)
         best = np.inf
         for _ in range(3):  # best of three, cache emptied each time
-            model_cache.clear()
+            clear_cache()
             t0 = time.perf_counter()
             prepared = prepare(model)
             best = min(best, time.perf_counter() - t0)

@@ -8,9 +8,9 @@ Target: growth <= 10 % over the second half (memory flat: no code or data kept p
 beyond the bounded prepared-model cache and the bounded machine code).
 
 With ``--machine-code always`` every model is also compiled to machine code
-(engine.native), as a worker does for batches and repeated models: memory then grows
+(engine.kernels.native), as a worker does for batches and repeated models: memory then grows
 by the compiled code of each model until the per-process bound
-(``engine.native.MAX_PER_PROCESS``), and must be flat after it.
+(``engine.kernels.native.MAX_PER_PROCESS``), and must be flat after it.
 
 Run: ``PYTHONPATH=. python -m bench.model_memory [--models 2000] [--machine-code always]``.
 """
@@ -23,7 +23,7 @@ import time
 
 import numpy as np
 
-from engine import native
+from engine.kernels import native
 from engine.integrate import SolverOptions, integrate
 from engine.model import prepare
 

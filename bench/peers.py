@@ -72,7 +72,7 @@ def engine_run(method: str):
 def _engine_sparse(kernel) -> bool:
     """Does the engine take its sparse linear-algebra path for this kernel?"""
     try:
-        from engine import sparse
+        from engine.integrators.sparse import core as sparse
         return bool(sparse.wants_sparse(kernel))
     except (ImportError, AttributeError):
         return False

@@ -163,8 +163,8 @@ def prepare_problem(problem: Problem):
     Kept here (not only in prepare's content-hash cache) because hashing a large
     model's JSON on every call would be charged to the solver being timed.
     """
-    from engine import native
-    from engine.limits import Limits
+    from engine.kernels import native
+    from engine.language.limits import Limits
     from engine.model import prepare
     key = id(problem)
     hit = _PREPARED.get(key)

@@ -99,7 +99,7 @@ def _secs(x):
 
 
 def _tier(info) -> str:
-    """The Problems table's note on how the engine evaluated the model (engine.native)."""
+    """The Problems table's note on how the engine evaluated the model (engine.kernels.native)."""
     if not info:
         return "-"
     if info.get("used"):

@@ -51,7 +51,7 @@ def method_phases(rep: dict) -> list[list]:
 
 
 def _tier(mc: dict | None) -> str | None:
-    """How the worker evaluated the model (engine.native), in words."""
+    """How the worker evaluated the model (engine.kernels.native), in words."""
     if not mc:
         return None
     if mc.get("used"):

@@ -16,8 +16,8 @@ ENGINE_DIR = Path(__file__).resolve().parent
 
 def source_hash() -> str:
     h = hashlib.sha256()
-    for path in sorted(ENGINE_DIR.glob("*.py")):
-        h.update(path.name.encode())
+    for path in sorted(ENGINE_DIR.rglob("*.py")):  # every sub-package: a moved file is a change too
+        h.update(path.relative_to(ENGINE_DIR).as_posix().encode())
         h.update(path.read_bytes())
     return h.hexdigest()[:16]
 

@@ -2,8 +2,8 @@
 
 Methods: "dormand_prince_54" (Dormand-Prince 5(4), explicit), "radau_iia_5" (Radau IIA order
 5, implicit), "rosenbrock_4" (Rosenbrock, order 4) and "auto" (starts explicit and
-switches by the policy of :mod:`engine.switching`). The compiled loop
-(:mod:`engine.driver`) runs in chunks; between chunks this wrapper calls the
+switches by the policy of :mod:`engine.integrators.switching`). The compiled loop
+(:mod:`engine.integrators.driver`) runs in chunks; between chunks this wrapper calls the
 monitor, enforces the wall-time limit and resumes. The report vocabulary is
 documented in docs/engine.md.
 """
@@ -16,12 +16,14 @@ from typing import Callable, Optional
 
 import numpy as np
 
-from engine import bdf, driver, native, sparse, sparse_radau, state as S, vm
-from engine.report import aux_at_outputs, build_report
-from engine.switching import P_IMPLICIT, SwitchPolicy
-from engine.tableaux import BDF, DORMAND_PRINCE, METHOD_NAMES, RADAU_IIA, ROSENBROCK
+from engine.integrators.sparse import bdf, core as sparse, radau as sparse_radau
+from engine.integrators import driver, state as S
+from engine.kernels import native, vm
+from engine.diagnostics.report import aux_at_outputs, build_report
+from engine.integrators.switching import P_IMPLICIT, SwitchPolicy
+from engine.integrators.tableaux import BDF, DORMAND_PRINCE, METHOD_NAMES, RADAU_IIA, ROSENBROCK
 
-METHODS = ("auto", "dormand_prince_54", "radau_iia_5", "rosenbrock_4", "bdf")
+from engine.choices import METHODS  # noqa: E402  (numba-free, read by the API)
 
 # Named outcomes. The strings are part of the wire format.
 SUCCEEDED = "succeeded"
@@ -61,7 +63,7 @@ class SolverOptions:
     diagnostics: str = "full"  # "full" (eigenvalues, history) or "counts" (lean)
     policy: SwitchPolicy = SwitchPolicy()
     # "auto": a run still on the interpreter after TIER_UP_SECONDS (and after longer than
-    # its compile would take) continues on machine code (engine.native), with the same
+    # its compile would take) continues on machine code (engine.kernels.native), with the same
     # values; "never" (default here; jobs pass their own option): never mid-run
     machine_code: str = "never"
 
@@ -131,7 +133,7 @@ class _Run:
         self.LUc, self.cbuf = _carve(np.complex128, (m, m), (m,))
         self.buffers = [a.base for a in (self.y, self.piv, self.LUc)]
         self.D = np.zeros((bdf.MAX_ORDER + 3, n)) if self.sparse else None
-        if self.sparse:  # sparse Radau IIA (engine.sparse_radau): work rows, complex rhs
+        if self.sparse:  # sparse Radau IIA (engine.integrators.sparse.radau): work rows, complex rhs
             self.sparse_luc = None
             self.radau_work = np.zeros((sparse_radau.N_WORK, n))
             self.radau_c = np.zeros(n, dtype=np.complex128)
@@ -177,8 +179,8 @@ class _Run:
         pinned = _PINNED[o.method]
         iw[S.I_PINNED] = pinned
         iw[S.I_METHOD] = DORMAND_PRINCE if pinned < 0 else pinned
-        if self.sparse and pinned >= 0:  # large sparse Jacobian: SuperLU (engine.sparse,
-            # engine.sparse_radau, engine.bdf); auto starts explicit and switches to
+        if self.sparse and pinned >= 0:  # large sparse Jacobian: SuperLU (engine.integrators.sparse.core,
+            # engine.integrators.sparse.radau, engine.integrators.sparse.bdf); auto starts explicit and switches to
             # the sparse BDF
             iw[S.I_PINNED] = iw[S.I_METHOD] = pinned if pinned in (ROSENBROCK, RADAU_IIA) else BDF
         iw[S.I_MAX_STEPS] = o.max_steps

@@ -8,8 +8,7 @@ JSON, so a sweep over parameters prepares a model once.
 """
 from __future__ import annotations
 
-import hashlib
-import json
+import os
 import threading
 import time
 from collections import OrderedDict
@@ -17,37 +16,16 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from engine import vm
-from engine.derivative import jacobian
-from engine.expr import Builder, Node
-from engine.limits import DEFAULT_LIMITS, Limits
-from engine.program import ConstPool, compile_program
-from engine.reactions import conservation_laws, law_label, stoichiometry
-from engine.names import suggest
-from engine.spec import is_number, read_model
-
-
-@dataclass(frozen=True)
-class ModelIssue:
-    """One problem, located by ``path`` inside the model object (e.g. ("ddt", "A"))."""
-
-    path: tuple
-    message: str
-    position: int | None = None
-    suggestion: str | None = None
-
-    def text(self) -> str:
-        head = f"position {self.position}: " if self.position is not None else ""
-        tail = f"; {self.suggestion}" if self.suggestion else ""
-        return head + self.message + tail
-
-
-class ModelError(ValueError):
-    """Raised by :func:`prepare` with every issue found."""
-
-    def __init__(self, issues: list[ModelIssue]):
-        self.issues = list(issues)
-        super().__init__("; ".join("/".join(map(str, i.path)) + ": " + i.text() for i in self.issues[:5]))
+from engine.kernels import vm
+from engine.language.check import (ModelError, ModelIssue, check_model, content_hash, facts,
+                                    read_checked)
+from engine.language.derivative import jacobian
+from engine.language.expr import Builder, Node
+from engine.language.limits import DEFAULT_LIMITS, Limits
+from engine.kernels.program import ConstPool, compile_program
+from engine.language.reactions import conservation_laws, law_label, stoichiometry
+from engine.language.names import suggest
+from engine.language.spec import is_number, read_model
 
 
 @dataclass(frozen=True, eq=False)
@@ -91,41 +69,16 @@ class PreparedModel:
         return p, y0
 
     def summary(self) -> dict:
-        """JSON-safe description: counts, stoichiometric matrix, conservation laws."""
+        """JSON-safe description: counts, stoichiometric matrix, conservation laws, and the
+        sizes of the compiled programs."""
         k = self.kernel
-        S = self.stoichiometry
-        out = {
-            "title": self.title, "content_hash": self.content_hash,
-            "counts": {"states": k.n, "parameters": len(self.param_names),
-                       "derived": k.n_aux, "events": k.n_events,
-                       "reactions": len(self.reaction_names),
-                       "jacobian_nonzeros": int(len(k.jac_rows))},
-            "instructions": {"rhs": int(len(k.rhs_code)), "jacobian": int(len(k.jac_code)),
-                             "derived": int(len(k.aux_code)), "events": int(len(k.event_code)),
-                             "registers": int(k.n_regs), "constants": int(len(k.consts))},
-            "states": list(self.state_names), "parameters": list(self.param_names),
-            "derived": list(self.aux_names), "events": list(self.event_names),
-            "reactions": list(self.reaction_names),
-            "conservation_laws": [{"label": lab, "coefficients": [float(c) for c in row]}
-                                  for lab, row in zip(self.conservation_labels, self.conservation)],
-            "prepare_seconds": self.prepare_seconds,
-        }
-        rows, cols = np.nonzero(S)
-        out["stoichiometry"] = {"rows": "states", "columns": "reactions",
-                                "entries": [[int(i), int(j), float(S[i, j])] for i, j in zip(rows, cols)]}
+        out = facts(self, self.stoichiometry, self.conservation, len(k.jac_rows), self.content_hash)
+        out["counts"]["derived"], out["counts"]["events"] = k.n_aux, k.n_events
+        out["instructions"] = {"rhs": int(len(k.rhs_code)), "jacobian": int(len(k.jac_code)),
+                               "derived": int(len(k.aux_code)), "events": int(len(k.event_code)),
+                               "registers": int(k.n_regs), "constants": int(len(k.consts))}
+        out["prepare_seconds"] = self.prepare_seconds
         return out
-
-
-
-
-def check_model(model, limits: Limits | None = None) -> list[ModelIssue]:
-    """Every problem in ``model`` (empty list if it is valid). Never raises on bad input."""
-    limits = limits or DEFAULT_LIMITS
-    try:
-        spec, issues = read_model(model, limits)
-    except RecursionError:
-        return [ModelIssue((), "model is nested too deeply")]
-    return [ModelIssue(*i) for i in issues]
 
 
 def parameter_jacobian(model, limits: Limits | None = None) -> "ParameterJacobian":
@@ -161,17 +114,46 @@ class ParameterJacobian:
         return out
 
 
-_CACHE: OrderedDict = OrderedDict()
+_CACHE: OrderedDict = OrderedDict()  # (digest, limits) -> (PreparedModel, bytes)
 _CACHE_LOCK = threading.Lock()
-CACHE_SIZE = 256
+CACHE_SIZE = 256  # models at most
+# bytes of arrays held by cached models at most (STIFFLANE_PREPARE_CACHE_MB, default 256);
+# a model larger than a quarter of it is not kept
+CACHE_BYTES = int(float(os.environ.get("STIFFLANE_PREPARE_CACHE_MB", "256")) * 2**20)
+_cache_bytes = [0]
 
 
-def content_hash(model) -> str | None:
-    try:
-        text = json.dumps(model, sort_keys=True, separators=(",", ":"), allow_nan=False)
-    except (TypeError, ValueError, RecursionError):
-        return None
-    return hashlib.sha256(text.encode()).hexdigest()
+def footprint(prepared: "PreparedModel") -> int:
+    """Bytes of the arrays a prepared model holds (its kernel's programs included)."""
+    arrays = [v for v in vars(prepared).values() if isinstance(v, np.ndarray)]
+    arrays += [v for v in prepared.kernel if isinstance(v, np.ndarray)]
+    return sum(a.nbytes for a in arrays) + 1024 * (len(prepared.state_names) + len(prepared.param_names))
+
+
+def _remember(key, prepared: "PreparedModel") -> None:
+    size = footprint(prepared)
+    if size > CACHE_BYTES // 4:
+        return
+    with _CACHE_LOCK:
+        if key in _CACHE:
+            return
+        _CACHE[key] = (prepared, size)
+        _cache_bytes[0] += size
+        while len(_CACHE) > CACHE_SIZE or _cache_bytes[0] > CACHE_BYTES:
+            _, (_, dropped) = _CACHE.popitem(last=False)
+            _cache_bytes[0] -= dropped
+
+
+def clear_cache() -> None:
+    with _CACHE_LOCK:
+        _CACHE.clear()
+        _cache_bytes[0] = 0
+
+
+def cache_usage() -> tuple[int, int]:
+    """(models, bytes) held by the prepare cache."""
+    with _CACHE_LOCK:
+        return len(_CACHE), _cache_bytes[0]
 
 
 def prepare(model, limits: Limits | None = None) -> PreparedModel:
@@ -184,17 +166,12 @@ def prepare(model, limits: Limits | None = None) -> PreparedModel:
             hit = _CACHE.get(key)
             if hit is not None:
                 _CACHE.move_to_end(key)
-                return hit
+                return hit[0]
     started = time.perf_counter()
-    spec, issues = read_model(model, limits)
-    if issues:
-        raise ModelError([ModelIssue(*i) for i in issues])
+    spec, _ = read_checked(model, limits)  # sizes are checked before any derivative work
     prepared = _compile(spec, limits, digest or "", started)
     if digest is not None:
-        with _CACHE_LOCK:
-            _CACHE[key] = prepared
-            while len(_CACHE) > CACHE_SIZE:
-                _CACHE.popitem(last=False)
+        _remember(key, prepared)
     return prepared
 
 
@@ -205,7 +182,7 @@ def _frozen(a) -> np.ndarray:
 
 
 def _mass_action_arrays(spec, S: np.ndarray, pool: ConstPool):
-    """Parts of the packed ``Kernel.ma`` array (see engine.vm.mass_action), the
+    """Parts of the packed ``Kernel.ma`` array (see engine.kernels.vm.mass_action), the
     stoichiometric values to append to the constants, and the rate constants to pin."""
     index = {name: i for i, name in enumerate(spec.state_names)}
     pinned: list[tuple[int, Node]] = []

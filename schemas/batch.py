@@ -5,7 +5,7 @@ Exactly one of ``members`` (explicit list), ``grid`` (cartesian product) or
 ``base``. Every name is checked against the base model, every value is finite,
 and the member count is capped (``max_members``), so a batch that is accepted
 can run. Members are never expanded here: :func:`design_of` returns the compact
-definition that engine/sampling.py turns into member values by index.
+definition that sweeps/sampling.py turns into member values by index.
 """
 from __future__ import annotations
 
@@ -13,7 +13,7 @@ import math
 
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
-from engine import sampling, summaries
+from sweeps import sampling, summaries
 from schemas.job import FiniteFloat, JobSpecSchema, StrictInteger
 
 TARGETS = ("parameters", "initial")
@@ -237,7 +237,7 @@ def member_count(data: dict) -> int:
 
 
 def design_of(data: dict) -> dict:
-    """The compact design of a loaded spec (see engine/sampling.py), columns in the order given."""
+    """The compact design of a loaded spec (see sweeps/sampling.py), columns in the order given."""
     if "members" in data:
         columns = []
         for m in data["members"]:

@@ -12,8 +12,7 @@ import math
 import numpy as np
 from marshmallow import Schema, ValidationError, fields, validate, validates_schema
 
-from engine.integrate import METHODS
-from engine.native import MODES as MACHINE_CODE_MODES
+from engine.choices import MACHINE_CODE_MODES, METHODS
 from schemas.model import ModelField
 
 MAX_OUTPUT_POINTS = 100_000
@@ -161,10 +160,11 @@ class JobSpecSchema(Schema):
 
 
 def describe_model(model: dict) -> dict:
-    """Facts about a valid model (names, counts, stoichiometry, conservation laws)."""
-    from engine.model import prepare
+    """Facts about a valid model (names, counts, stoichiometry, conservation laws), from the
+    model language alone: sizes are checked first, nothing is differentiated or compiled."""
+    from engine.language.check import describe
 
-    return prepare(model).summary()
+    return describe(model)
 
 
 def output_times(span: list[float], output: dict) -> np.ndarray:

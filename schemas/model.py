@@ -1,5 +1,5 @@
 """The ``model`` object of a job spec: a marshmallow field that checks the whole
-model language by calling the engine (``engine.model.check_model``).
+model language by calling the model language (``engine.language.check.check_model``; no numba).
 
 Errors are raised as one ``ValidationError`` whose messages are nested by the
 path inside the model, e.g. ``{"ddt": {"A": ["position 7: unknown name 'kf';
@@ -11,8 +11,8 @@ from __future__ import annotations
 
 from marshmallow import ValidationError, fields
 
-from engine.limits import Limits
-from engine.model import ModelIssue, check_model
+from engine.language.limits import Limits
+from engine.language.check import ModelIssue, check_model
 
 SCHEMA_KEY = "_schema"
 

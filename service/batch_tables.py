@@ -2,7 +2,7 @@
 
 Rows exist for every member whose chunk has finished (done, cancelled or lost),
 so a running batch already gives a partial table. Member values are rebuilt from
-the stored design (engine/sampling.py), never stored per member.
+the stored design (sweeps/sampling.py), never stored per member.
 """
 from __future__ import annotations
 
@@ -12,7 +12,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from engine import sampling
+from sweeps import sampling
 from jobs import blob as result_blob
 from jobs.batch_store import BatchRecord, BatchStore
 from schemas.views import CAUTION, CAUTION_CSV_LINE

@@ -9,7 +9,7 @@ from datetime import datetime, timezone
 
 from flask import Blueprint, Response, current_app, json, request, url_for
 
-from engine import sampling, summaries
+from sweeps import sampling, summaries
 from jobs.batch_store import BatchRecord, BatchStore, chunk_size_for
 from jobs.blob import json_safe
 from jobs.keys import is_job_id

@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 
 from engine.integrate import METHODS
-from engine import vm
+from engine.kernels import vm
 from engine.model import check_model, prepare
 from jobs import blob
 from schemas.views import CAUTION

@@ -17,7 +17,8 @@ from typing import Callable
 
 import numpy as np
 
-from engine import native, sampling, summaries
+from engine.kernels import native
+from sweeps import sampling, summaries
 from engine.integrate import CANCELLED, SUCCEEDED, SolverOptions, integrate
 from engine.model import PreparedModel, prepare
 from jobs import blob as result_blob

@@ -13,7 +13,7 @@ import traceback
 
 from marshmallow import ValidationError
 
-from engine import native
+from engine.kernels import native
 from engine.integrate import CANCELLED, SUCCEEDED, integrate
 from engine.model import ModelError, prepare
 from jobs import blob as result_blob

@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 
 from bench import jitted, problems as PR
-from engine import vm
+from engine.kernels import vm
 
 SMALL = ("robertson", "hires", "vanderpol", "arenstorf", "lorenz", "ramp", "brusselator4")
 

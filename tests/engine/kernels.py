@@ -1,14 +1,14 @@
 """Test problems as engine kernels.
 
 ``linear_kernel`` builds the register programs of y' = A y by hand (it depends
-only on engine.vm); the published nonlinear problems are written in the model
+only on engine.kernels.vm); the published nonlinear problems are written in the model
 language and prepared with engine.model.prepare.
 """
 from __future__ import annotations
 
 import numpy as np
 
-from engine import vm
+from engine.kernels import vm
 from engine.model import prepare
 
 

@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 from hypothesis import assume, given, settings, strategies as st
 
-from engine.derivative import gradients, jacobian
-from engine.expr import Builder, ExprError, evaluate, postorder
-from engine.parser import parse
+from engine.language.derivative import gradients, jacobian
+from engine.language.expr import Builder, ExprError, evaluate, postorder
+from engine.language.parser import parse
 
 NAMES = ("x", "y", "z")
 

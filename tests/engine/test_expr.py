@@ -7,9 +7,9 @@ import sys
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from engine.expr import Builder, ExprError, evaluate, to_text
-from engine.parser import parse
-from engine.limits import Limits
+from engine.language.expr import Builder, ExprError, evaluate, to_text
+from engine.language.parser import parse
+from engine.language.limits import Limits
 
 
 @pytest.fixture

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from engine.integrate import SUCCEEDED, SolverOptions, integrate
-from engine.switching import SwitchPolicy
+from engine.integrators.switching import SwitchPolicy
 from tests.engine import kernels as K
 
 
@@ -61,7 +61,7 @@ def real_axis_boundary():
 
 
 def test_engine_tableau_has_the_published_stability_polynomial():
-    from engine.tableaux import DP_A
+    from engine.integrators.tableaux import DP_A
     A, b = DP_A[:6, :6], DP_A[6, :6]
     for z in (-0.5, -1.7, -3.0, 0.3):
         r = 1 + z * b @ np.linalg.solve(np.eye(6) - z * A, np.ones(6))
@@ -120,7 +120,7 @@ def test_power_iteration_estimates_the_spectral_radius_at_any_scale(scale):
     # spectral radius = largest |eigenvalue| (numpy.linalg.eigvals as the reference);
     # the estimate (||J^k v|| / ||v||)^(1/k) from a cold start with six iterations must
     # land within 25 % for a matrix with a clear dominant eigenvalue, at every scale
-    from engine.switching import spectral_radius
+    from engine.integrators.switching import spectral_radius
     rng = np.random.default_rng(7)
     Q = np.linalg.qr(rng.standard_normal((6, 6)))[0]
     lam = np.array([-40.0, -3.0, -1.0, -0.5, -0.2, -0.1])

@@ -206,7 +206,7 @@ def test_frozen_event_flags_reuse_the_compiled_loop_the_warm_up_loaded():
     # A prepared model's arrays are read-only; integrate must hand the compiled loop the
     # same array types as the warm-up does, or each worker process loads a second
     # specialisation on its first job.
-    from engine import driver
+    from engine.integrators import driver
     spec = dict(K.VAN_DER_POL, events=[{"name": "x_zero", "when": "x", "direction": "falling"}])
     m = K.model(spec)
     assert not m.event_directions.flags.writeable

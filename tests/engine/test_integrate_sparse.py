@@ -1,11 +1,11 @@
-"""Large sparse systems: SuperLU on the Jacobian pattern (engine.sparse, engine.bdf)."""
+"""Large sparse systems: SuperLU on the Jacobian pattern (engine.integrators.sparse.core, engine.integrators.sparse.bdf)."""
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.sparse import coo_matrix
 
 from engine.integrate import SUCCEEDED, SolverOptions, integrate
-from engine.sparse import wants_sparse
+from engine.integrators.sparse.core import wants_sparse
 from tests.engine import kernels as K
 
 N = 12  # 2 x 12^2 = 288 states, 6 non-zeros per row: takes the sparse path

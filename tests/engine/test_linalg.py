@@ -1,8 +1,8 @@
-"""The compiled dense LU (engine.linalg) against numpy.linalg.solve (LAPACK)."""
+"""The compiled dense LU (engine.integrators.linalg) against numpy.linalg.solve (LAPACK)."""
 import numpy as np
 import pytest
 
-from engine.linalg import lu_factor, lu_solve
+from engine.integrators.linalg import lu_factor, lu_solve
 
 
 @pytest.mark.parametrize("dtype", [np.float64, np.complex128])

@@ -11,7 +11,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from engine import vm
+from engine.kernels import vm
 from engine.model import ModelError, check_model, prepare
 
 MODELS = Path(__file__).resolve().parents[2] / "examples" / "models"
@@ -164,7 +164,7 @@ def test_issue_text_has_position_and_suggestion():
 
 
 def test_size_limits_on_sections():
-    from engine.limits import Limits
+    from engine.language.limits import Limits
     many = {"states": {f"s{i}": 0.0 for i in range(20)}}
     (issue,) = check_model(many, Limits(max_states=10))
     assert issue.path == ("states",) and "limit is 10" in issue.message

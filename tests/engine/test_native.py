@@ -1,6 +1,6 @@
-"""The machine-code tier (engine.native): same values as the interpreter, bounded, chosen by policy.
+"""The machine-code tier (engine.kernels.native): same values as the interpreter, bounded, chosen by policy.
 
-The interpreter (engine.vm.run) is the specification; the published-problem checks
+The interpreter (engine.kernels.vm.run) is the specification; the published-problem checks
 run the machine-code kernels against the same external references as the
 interpreter's tests (test_integrate_methods.py).
 """
@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from hypothesis import assume, given, settings, strategies as st
 
-from engine import native, vm
+from engine.kernels import native, vm
 from engine.integrate import SUCCEEDED
 from engine.model import ModelError, prepare
 from tests.engine import kernels as K

@@ -5,11 +5,11 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from engine import vm
-from engine.expr import Builder, evaluate
-from engine.parser import parse
-from engine.limits import Limits
-from engine.program import ConstPool, compile_program
+from engine.kernels import vm
+from engine.language.expr import Builder, evaluate
+from engine.language.parser import parse
+from engine.language.limits import Limits
+from engine.kernels.program import ConstPool, compile_program
 
 
 def build(texts, limits=Limits()):

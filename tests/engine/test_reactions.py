@@ -9,10 +9,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from engine import vm
-from engine.expr import ExprError
+from engine.kernels import vm
+from engine.language.expr import ExprError
 from engine.model import prepare
-from engine.reactions import GAS_CONSTANT, parse_equation
+from engine.language.reactions import GAS_CONSTANT, parse_equation
 
 MODELS = Path(__file__).resolve().parents[2] / "examples" / "models"
 

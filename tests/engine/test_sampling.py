@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from engine import sampling
+from sweeps import sampling
 
 
 def sample_design(method="random", count=1000, seed=42, dists=None):

@@ -1,4 +1,4 @@
-"""Radau IIA (order 5) on the sparse path (engine.sparse_radau, SuperLU).
+"""Radau IIA (order 5) on the sparse path (engine.integrators.sparse.radau, SuperLU).
 
 Oracles: SciPy's solve_ivp at rtol 1e-10/1e-11 on the same right-hand side and
 sparsity (2-D Brusselator of Hairer & Wanner II, sec. IV.10; 1-D Brusselator of
@@ -14,7 +14,7 @@ from scipy.integrate import solve_ivp
 from scipy.sparse import coo_matrix
 
 from engine.integrate import NON_FINITE, SUCCEEDED, SolverOptions, integrate
-from engine.sparse import wants_sparse
+from engine.integrators.sparse.core import wants_sparse
 from tests.engine import kernels as K
 from tests.engine.test_sparse_scipy import N as N_1D, T_END as T_END_1D, bruss_1d
 

@@ -1,4 +1,4 @@
-"""The sparse path (SuperLU; engine.sparse, engine.bdf) against SciPy Radau.
+"""The sparse path (SuperLU; engine.integrators.sparse.core, engine.integrators.sparse.bdf) against SciPy Radau.
 
 1-D Brusselator, Hairer, Norsett & Wanner I, sec. I.16 / Hairer & Wanner II,
 sec. IV.1, eq. (1.6'): N grid points on (0, 1) with Dirichlet boundaries,
@@ -18,7 +18,7 @@ from scipy.integrate import solve_ivp
 from scipy.sparse import coo_matrix
 
 from engine.integrate import SUCCEEDED, SolverOptions, integrate
-from engine.sparse import wants_sparse
+from engine.integrators.sparse.core import wants_sparse
 from tests.engine import kernels as K
 
 N = 120
@@ -71,7 +71,7 @@ def test_chain_matches_scipy_radau(bruss, method, rtol):
     assert r["sparse_linear_algebra"] is True
     err = np.abs(sol.y - ref) / (atol + rtol * np.abs(ref))
     # Global error within 10x the requested tolerance, in the norm the tolerance
-    # is specified in (RMS over the states, engine.errors_norm). The worst state
+    # is specified in (RMS over the states, engine.integrators.errors_norm). The worst state
     # of a multistep method may exceed it (SciPy's own BDF reaches 9x at 1e-6,
     # 16x at 1e-7 on this problem); Rosenbrock is held to the maximum.
     assert np.sqrt(np.mean(err ** 2, axis=1)).max() < 10

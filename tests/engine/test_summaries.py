@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from engine import summaries
+from sweeps import summaries
 from engine.integrate import SolverOptions, integrate
 from engine.model import prepare
 

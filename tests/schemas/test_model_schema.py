@@ -7,7 +7,7 @@ from pathlib import Path
 import pytest
 from marshmallow import Schema, ValidationError
 
-from engine.model import ModelIssue
+from engine.language.check import ModelIssue
 from schemas.model import ModelField, issues_to_messages
 
 MODELS = Path(__file__).resolve().parents[2] / "examples" / "models"

@@ -1,11 +1,11 @@
 """Register machine that evaluates model programs inside compiled loops.
 
 A model's right-hand side, Jacobian values, intermediate quantities and event
-functions are each compiled (by ``engine.program``) into a *program*: a plain
+functions are each compiled (by ``engine.kernels.program``) into a *program*: a plain
 ``int32`` array of instructions over a ``float64`` register file. One numba
 function, compiled once and cached on disk, runs every program of every model,
 so any model runs at once, without a compile (compiled code is never freed, so a
-long-running worker cannot compile every model it sees). ``engine.native`` adds,
+long-running worker cannot compile every model it sees). ``engine.kernels.native`` adds,
 for models evaluated many times and within its bounds, machine code that the
 compiled loops call through the Kernel's ``native_*`` addresses instead.
 
@@ -43,12 +43,12 @@ AND, OR, NOT, SELECT = 33, 34, 35, 36
 MULADD = 37  # dst = a * b + c (fused form used by mass-action rates)
 SIGN = 38
 MOVE = 39    # dst = a (pins a value in a register read after the program)
-# Load-free operand forms (engine.program folds a single-use constant or parameter
+# Load-free operand forms (engine.kernels.program folds a single-use constant or parameter
 # load into its reader): one dispatch instead of two.
 MULC, MULP = 40, 41          # dst = a * consts[b] / a * p[b]
 MULADDC, MULADDP = 42, 43    # dst = a * consts[b] + c / a * p[b] + c
 OUTC = 44                    # out[dst] = consts[a]
-# First row of a linked program (engine.program.link): (PROLOGUE, ny, np, nc, t) copies
+# First row of a linked program (engine.kernels.program.link): (PROLOGUE, ny, np, nc, t) copies
 # y[:ny], p[:np], t (if t != 0) and consts[:nc] into registers 0, 1, ... in that order.
 PROLOGUE = 45
 
@@ -88,7 +88,7 @@ class Kernel(NamedTuple):
     # (see mass_action); [0, 0] when the model has no reactions.
     ma: np.ndarray = np.zeros(2, dtype=np.int64)
     # Addresses of machine-code versions of the right-hand side (mass-action part
-    # included), the Jacobian values and the event functions (engine.native); 0: the
+    # included), the Jacobian values and the event functions (engine.kernels.native); 0: the
     # programs run here. Derived quantities (read at output times only) stay here.
     # The addresses are valid in this process and its forked children only: a Kernel is
     # never sent to another process (jobs cross the queue as JSON and are prepared there).
@@ -286,7 +286,7 @@ def _pow(x, e):
 @intrinsic
 def call_native(typingctx, address, t, y, p, out):
     """Call ``void f(double t, double *y, double *p, double *out)`` at ``address``
-    (an engine.native cfunc) with the arrays' data pointers."""
+    (an engine.kernels.native cfunc) with the arrays' data pointers."""
     arrays = (y, p, out)
     if not (isinstance(address, types.Integer) and isinstance(t, types.Float)
             and all(isinstance(a, types.Array) and a.ndim == 1 and a.layout == "C"

@@ -3,16 +3,16 @@
 No ``eval`` and no ``ast``: the text is checked first (type, length, printable ASCII,
 parenthesis depth), then tokenized with literal-size checks, then parsed with a
 nesting-depth and node-count budget. Every problem becomes an
-:class:`engine.expr.ExprError` with the 0-based character position. The tree is built
-by an :class:`engine.expr.Builder`, which folds constants and shares subexpressions.
+:class:`engine.language.expr.ExprError` with the 0-based character position. The tree is built
+by an :class:`engine.language.expr.Builder`, which folds constants and shares subexpressions.
 """
 from __future__ import annotations
 
 import re
 
-from engine.expr import Builder, ExprError, Node
-from engine.limits import DEFAULT_LIMITS, Limits
-from engine.names import CONSTANTS, FUNCTIONS, TIME, suggest
+from engine.language.expr import Builder, ExprError, Node
+from engine.language.limits import DEFAULT_LIMITS, Limits
+from engine.language.names import CONSTANTS, FUNCTIONS, TIME, suggest
 
 # Parser: tokenizer + recursive descent. Precedence, lowest first:
 #   or < and < not < comparison < + - < * / < unary - + < ^ ** (right-assoc)

@@ -18,7 +18,7 @@ N_FS = 19
  I_JAC_CURRENT, I_LU_VALID, I_CONT_METHOD, I_HAVE_CONT, I_NEV_LOG, I_NEV_TOTAL,
  I_SWITCH_RETURNS, I_SPARE27, I_SPARE28, I_NONNEG, I_HAS_TIME,
  I_FAIL_STREAK, I_FAIL_KIND, I_TERMINAL, I_RETURN, I_NONNEG_REJECTS) = range(36)
-# accepted steps per method id (engine.tableaux): four slots from I_STEPS_DORMAND_PRINCE
+# accepted steps per method id (engine.integrators.tableaux): four slots from I_STEPS_DORMAND_PRINCE
 I_STEPS_DORMAND_PRINCE, I_STEPS_RADAU_IIA, I_STEPS_ROSENBROCK, I_STEPS_BDF = 36, 37, 38, 39
 I_ORDER, I_EQUAL_STEPS = 40, 41  # variable-order BDF (sparse path)
 N_IW = 42

@@ -1,16 +1,16 @@
 """Rosenbrock 4(3): a stiffly accurate Rosenbrock method of order 4(3), 6 stages.
 
 Hairer & Wanner, Solving ODEs II, sec. VI.4 (coefficients of the published
-Rosenbrock code of Hairer & Wanner, set 1; see ``engine.tableaux``). Each step uses one Jacobian and one
+Rosenbrock code of Hairer & Wanner, set 1; see ``engine.integrators.tableaux``). Each step uses one Jacobian and one
 LU factorisation of (1/(gamma h) I - J); no Newton iteration. The embedded
 error estimate is the last stage increment; dense output of order 3.
 """
 from numba import njit
 
-from engine import vm
-from engine.errors_norm import err_norm
-from engine.linalg import lu_factor, lu_solve, shifted
-from engine.tableaux import RO_A, RO_C, RO_CC, RO_D, RO_DENSE, RO_GAMMA
+from engine.kernels import vm
+from engine.integrators.errors_norm import err_norm
+from engine.integrators.linalg import lu_factor, lu_solve, shifted
+from engine.integrators.tableaux import RO_A, RO_C, RO_CC, RO_D, RO_DENSE, RO_GAMMA
 
 ORDER = 4
 

@@ -22,8 +22,11 @@ class Limits:
     max_derived: int = 2000
     max_reactions: int = 20000
     max_species_per_side: int = 16       # terms on one side of a reaction equation
+    max_coefficient: int = 1000          # a stoichiometric coefficient, whole or fractional
     max_events: int = 100
     max_instructions: int = 5_000_000    # all compiled programs together
+    max_jacobian_nonzeros: int = 500_000  # structural, counted before differentiating
+    max_stoichiometry_cells: int = 25_000_000  # states x reactions (a dense float64 matrix)
     max_issues: int = 50                 # issues reported for one model
 
 

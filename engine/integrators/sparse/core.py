@@ -1,6 +1,6 @@
 """Large sparse systems: SuperLU on the Jacobian's pattern, the loop head and the
-return to the explicit method shared by the sparse methods (engine.bdf,
-engine.sparse_radau), and Rosenbrock 4(3) steps.
+return to the explicit method shared by the sparse methods (engine.integrators.sparse.bdf,
+engine.integrators.sparse.radau), and Rosenbrock 4(3) steps.
 
 Used when n > SPARSE_MIN_N and the Jacobian has under SPARSE_MAX_DENSITY of
 its entries non-zero (e.g. reaction-diffusion grids). The step loop runs in
@@ -19,12 +19,13 @@ import numpy as np
 from scipy.sparse import csc_matrix
 from scipy.sparse.linalg import splu
 
-from engine import rosenbrock_4, state as S, vm
-from engine.driver import EPS, _finish, _switch
-from engine.errors_norm import err_norm
-from engine.steps import reject
-from engine.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
-from engine.tableaux import DORMAND_PRINCE, RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
+from engine.integrators import rosenbrock_4, state as S
+from engine.kernels import vm
+from engine.integrators.driver import EPS, _finish, _switch
+from engine.integrators.errors_norm import err_norm
+from engine.integrators.steps import reject
+from engine.integrators.switching import P_BOUNDARY, REASON_EXPLICIT_CHEAPER, implicit_says_nonstiff
+from engine.integrators.tableaux import DORMAND_PRINCE, RO_A, RO_C, RO_CC, RO_D, RO_GAMMA
 
 SPARSE_MIN_N = 200
 SPARSE_MAX_DENSITY = 0.05
@@ -144,7 +145,7 @@ class Pattern:
 
     def factor_complex(self, vals, shift):
         """Factors of shift I - J for a complex ``shift`` (Radau IIA's complex pair,
-        engine.sparse_radau), with the ordering of the real factorisations."""
+        engine.integrators.sparse.radau), with the ordering of the real factorisations."""
         if self.perm is None:  # the first real factorisation computes the ordering
             self.factor(vals, abs(shift))
         d = self.cdata
@@ -209,7 +210,7 @@ def _attempt(kernel, run, lu, t, h):
 
 def new_jacobian(kernel, run, pattern, t, y):
     """Jacobian values at (t, y) on the pattern, counted, with the spectral radius and
-    the explicit step it allows (engine.steps.new_jacobian for the sparse methods)."""
+    the explicit step it allows (engine.integrators.steps.new_jacobian for the sparse methods)."""
     vm.jac_values(kernel, t, y, run.p, run.regs, run.jv)
     run.iw[S.I_NJEV] += 1
     run.iw[S.I_JAC_CURRENT] = 1
@@ -230,7 +231,7 @@ def _jacobian(kernel, run, pattern, t):
 
 
 def next_step(run, steps, budget):
-    """The loop head of every sparse method (as in engine.driver.advance): copy the
+    """The loop head of every sparse method (as in engine.integrators.driver.advance): copy the
     outputs the run has reached, end it at t_end, at the step limit or when the step
     size underflows (the outcome named by the last failure), end the chunk after
     ``budget`` steps. Returns the step size to attempt, or None to leave the loop."""
@@ -271,7 +272,7 @@ def explicit_cheaper(run, h) -> bool:
 
 
 def to_explicit(kernel, run):
-    """Hand the run back to the compiled Dormand-Prince loop (engine.driver)."""
+    """Hand the run back to the compiled Dormand-Prince loop (engine.integrators.driver)."""
     fs, iw, V = run.fs, run.iw, run.V
     _switch(fs, iw, run.swlog, DORMAND_PRINCE, REASON_EXPLICIT_CHEAPER)
     iw[S.I_RETURN] = 0  # the Python loop dispatches the next chunk to the driver
@@ -282,7 +283,7 @@ def to_explicit(kernel, run):
 
 
 def advance(kernel, run, pattern, budget):
-    """Python twin of engine.driver.advance for the sparse Rosenbrock path."""
+    """Python twin of engine.integrators.driver.advance for the sparse Rosenbrock path."""
     fs, iw = run.fs, run.iw
     steps = 0
     lu = run.sparse_lu

@@ -18,9 +18,9 @@ from fractions import Fraction
 
 import numpy as np
 
-from engine.expr import Builder, ExprError, Node
-from engine.limits import DEFAULT_LIMITS, Limits
-from engine.names import suggest
+from engine.language.expr import Builder, ExprError, Node
+from engine.language.limits import DEFAULT_LIMITS, Limits
+from engine.language.names import suggest
 
 GAS_CONSTANT = 8.314462618  # J/(mol K), exact (2019 SI)
 CALORIE = 4.184             # J, thermochemical calorie
@@ -40,6 +40,7 @@ class Equation:
 
 
 _ONE = Fraction(1)
+STRUCTURAL_MAX_ORDER = 4
 _COEFFICIENTS: dict[str, Fraction] = {}
 
 
@@ -74,6 +75,9 @@ def _side(text: str, offset: int, species, limits: Limits) -> tuple[tuple[str, F
         value = _coefficient(coef)
         if value <= 0:
             raise ExprError("a coefficient must be positive", pos + m.start("coef"))
+        if value > limits.max_coefficient:
+            raise ExprError(f"coefficient {coef} is larger than {limits.max_coefficient}, the largest "
+                            f"allowed", pos + m.start("coef"))
         if name not in species:
             raise ExprError(f"unknown species '{name}'; species must be declared in states",
                             pos + m.start("name"), suggest(name, species))
@@ -339,7 +343,11 @@ def _one_reaction(r, j, item):
         forward = mass_action(b, k, eq.reactants, nodes)
         backward = mass_action(b, kr, eq.products, nodes) if eq.reversible else None
         rate = b.sub(forward, backward) if eq.reversible else forward
-        integral = all(c.denominator == 1 for _, c in (*eq.reactants, *eq.products))
+        # whole orders up to STRUCTURAL_MAX_ORDER run on the structural mass-action path
+        # (species repeated by order); other orders as expressions (powers by squaring), so
+        # the work never grows with a coefficient's value
+        integral = all(c.denominator == 1 and c <= STRUCTURAL_MAX_ORDER
+                       for _, c in (*eq.reactants, *eq.products))
         structure = (k, eq.reactants, kr, eq.products) if integral else \
             (forward, (), backward, ())
     if eq is None or rate is None:

@@ -12,7 +12,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from engine import vm
+from engine.kernels import vm
 
 EIG_MAX_N = 200
 N_SAMPLES = 5
@@ -92,7 +92,7 @@ def _sparse_radius(kernel, t, y, p, regs, vals, iters=30):
 
 def dormand_prince_54_real_boundary() -> float:
     """Where |R(z)| = 1 on the negative real axis for Dormand-Prince 5(4) (used by docs)."""
-    from engine.tableaux import DP_A
+    from engine.integrators.tableaux import DP_A
     b = DP_A[6]
     A = DP_A[:7, :7]
 

@@ -10,9 +10,9 @@ import math
 
 from numba import njit
 
-from engine import vm
-from engine.errors_norm import err_norm
-from engine.tableaux import DP_A, DP_C, DP_D, DP_E
+from engine.kernels import vm
+from engine.integrators.errors_norm import err_norm
+from engine.integrators.tableaux import DP_A, DP_C, DP_D, DP_E
 
 # Real-axis stability boundary of the method: |R(z)| <= 1 for z in [-3.3, 0]
 # (computed from the stability polynomial in the tests).

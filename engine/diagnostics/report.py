@@ -8,9 +8,11 @@ import time
 import numpy as np
 from numba import njit
 
-from engine import state as S, stiffness, vm
-from engine.switching import P_BOUNDARY, REASON_NAMES
-from engine.tableaux import METHOD_NAMES
+from engine.integrators import state as S
+from engine.diagnostics import stiffness
+from engine.kernels import vm
+from engine.integrators.switching import P_BOUNDARY, REASON_NAMES
+from engine.integrators.tableaux import METHOD_NAMES
 
 MAX_HISTORY = 500
 

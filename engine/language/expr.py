@@ -1,6 +1,6 @@
 """Expression trees of the model language.
 
-The parser (``engine.parser``) builds these trees from text.
+The parser (``engine.language.parser``) builds these trees from text.
 
 Trees are immutable :class:`Node` objects made by a :class:`Builder`, which
 folds constants in float64, applies local simplifications and hash-conses
@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import math
 
-from engine.limits import DEFAULT_LIMITS
-from engine.names import TIME
+from engine.language.limits import DEFAULT_LIMITS
+from engine.language.names import TIME
 
 COMMUTATIVE = frozenset({"add", "mul", "min", "max", "eq", "ne", "and", "or"})
 LEAVES = frozenset({"const", "y", "p", "t"})
@@ -74,7 +74,7 @@ def _clip(x):
     return min(max(x, -709.0), 709.0)
 
 
-# Scalar semantics of every operator; identical to engine.vm.run.
+# Scalar semantics of every operator; identical to engine.kernels.vm.run.
 UNARY = {
     "neg": lambda x: -x, "exp": lambda x: math.exp(min(x, 709.0)), "log": _log,
     "log10": lambda x: math.log10(x) if x > 0 else (-math.inf if x == 0 else math.nan),
@@ -95,7 +95,7 @@ BINARY = {
 
 
 def powi(x: float, n: int) -> float:
-    """x**n by repeated squaring, exactly as engine.vm computes it."""
+    """x**n by repeated squaring, exactly as engine.kernels.vm computes it."""
     if n < 0:
         x, n = _div(1.0, x), -n
     r = 1.0

@@ -16,7 +16,7 @@ grid adds is the error of reading a continuous quantity from samples:
   samples; error about h^2 |x''| / (8 |x'|). For times that must be exact to
   round-off, declare an event in the model and use ``event``.
 - ``event``: first time the model's event fires, located by the integrator on
-  its interpolant (engine/events.py), independent of the grid.
+  its interpolant (engine/integrators/events.py), independent of the grid.
 - ``integral``: composite trapezoid rule on the grid; error about
   (t1 - t0) h^2 max|x''| / 12.
 

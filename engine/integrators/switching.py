@@ -111,7 +111,7 @@ def log_switch(log, n_logged, t, m_from, m_to, h, rho, h_exp, reason):
 
 @njit(cache=True, nogil=True)
 def implicit_choice(pol, rtol):
-    """1 = radau_iia_5, 2 = rosenbrock_4 (ids of engine.tableaux); the engine sets P_IMPLICIT to
+    """1 = radau_iia_5, 2 = rosenbrock_4 (ids of engine.integrators.tableaux); the engine sets P_IMPLICIT to
     3 = bdf for large sparse models (sparse LU)."""
     if pol[P_IMPLICIT] >= 0.0:
         return int(pol[P_IMPLICIT])

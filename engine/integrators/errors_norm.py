@@ -7,7 +7,7 @@ import math
 
 from numba import njit
 
-from engine import vm
+from engine.kernels import vm
 
 
 @njit(cache=True, nogil=True, _nrt=False)

@@ -3,7 +3,7 @@
 Forward accumulation over the shared tree: every node gets its sparse
 gradient (variable index -> derivative node), built from its children's
 gradients with the chain rule, once per node. Because the
-:class:`engine.expr.Builder` interns and simplifies, derivative terms share
+:class:`engine.language.expr.Builder` interns and simplifies, derivative terms share
 subexpressions with the right-hand side and with each other, and structural
 zeros vanish, which gives the sparsity pattern directly.
 
@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import math
 
-from engine.expr import Builder, Node, postorder
+from engine.language.expr import Builder, Node, postorder
 
 _ZERO_DERIVATIVE = frozenset({"const", "t", "sign", "step", "not", "lt", "le", "gt", "ge",
                               "eq", "ne", "and", "or"})

@@ -13,10 +13,10 @@ import math
 import numpy as np
 from numba import njit
 
-from engine import vm
-from engine.errors_norm import err_norm
-from engine.linalg import clu_factor, clu_solve, cshifted, lu_factor, lu_solve, shifted
-from engine.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_P, RA_T,
+from engine.kernels import vm
+from engine.integrators.errors_norm import err_norm
+from engine.integrators.linalg import clu_factor, clu_solve, cshifted, lu_factor, lu_solve, shifted
+from engine.integrators.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_P, RA_T,
                              RA_TI)
 
 NEWTON_MAXITER = 7

@@ -3,7 +3,7 @@
 Own loops: for the small and medium systems of chemical kinetics (n up to a
 few hundred) they beat a call into LAPACK through an object boundary, and they
 run inside the compiled step loop. Large sparse systems use SuperLU instead
-(see ``engine.sparse``).
+(see ``engine.integrators.sparse.core``).
 """
 from numba import njit
 

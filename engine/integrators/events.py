@@ -9,8 +9,9 @@ Numerical Methods, sec. 6.2), to a few units of round-off in t.
 import numpy as np
 from numba import njit
 
-from engine import dormand_prince_54, radau_iia_5, rosenbrock_4, vm
-from engine.tableaux import BDF, DORMAND_PRINCE, RADAU_IIA
+from engine.integrators import dormand_prince_54, radau_iia_5, rosenbrock_4
+from engine.kernels import vm
+from engine.integrators.tableaux import BDF, DORMAND_PRINCE, RADAU_IIA
 
 
 @njit(cache=True, nogil=True)
@@ -22,7 +23,7 @@ def dense_eval(method, cont, t_old, h, t, out):
     elif method == RADAU_IIA:
         radau_iia_5.dense(cont, x, out)
     elif method == BDF:
-        # Newton form through the last points (engine.bdf): rows beyond the
+        # Newton form through the last points (engine.integrators.sparse.bdf): rows beyond the
         # current order are zero.
         t_new = t_old + h
         out[:] = cont[0]

@@ -6,7 +6,7 @@ codes (Byrne & Hindmarsh 1975): the array D holds backward differences of the
 solution on an equidistant grid and is rescaled when the step changes.
 
 Linear algebra: one sparse LU of I - c J (scipy.sparse.linalg.splu, see
-``engine.sparse``) serves many steps and Newton iterations. The factors are
+``engine.integrators.sparse.core``) serves many steps and Newton iterations. The factors are
 kept while (1 + c rho) / (1 + c_LU rho) stays within LU_RATIO (rho: spectral
 radius of J), and corrections made with a stale c_LU are scaled by
 2 / (1 + that ratio), as in the BDF codes. The Jacobian is re-evaluated when
@@ -29,12 +29,13 @@ import math
 import numpy as np
 from numba import njit
 
-from engine import state as S, vm
-from engine.driver import _finish
-from engine.errors_norm import err_norm_scaled
-from engine.sparse import explicit_cheaper, new_jacobian, next_step, to_explicit
-from engine.steps import reject
-from engine.state import (F_H, F_RTOL, I_EQUAL_STEPS, I_JAC_CURRENT, I_NONNEG,
+from engine.integrators import state as S
+from engine.kernels import vm
+from engine.integrators.driver import _finish
+from engine.integrators.errors_norm import err_norm_scaled
+from engine.integrators.sparse.core import explicit_cheaper, new_jacobian, next_step, to_explicit
+from engine.integrators.steps import reject
+from engine.integrators.state import (F_H, F_RTOL, I_EQUAL_STEPS, I_JAC_CURRENT, I_NONNEG,
                           I_NONNEG_REJECTS, V_NNMASK, V_YNEW)
 
 MAX_ORDER = 5
@@ -407,7 +408,7 @@ def _reject(run, h, factor, kind, order):
 
 
 def advance(kernel, run, pattern, budget):
-    """Python twin of engine.driver.advance for the sparse BDF path."""
+    """Python twin of engine.integrators.driver.advance for the sparse BDF path."""
     fs, iw = run.fs, run.iw
     if getattr(run, "bdf_work", None) is None:
         run.bdf_work = np.zeros((6, run.D.shape[1]))  # rows W_Y .. W_B

@@ -1,4 +1,4 @@
-"""Compile expression DAGs into register programs for :func:`engine.vm.run`.
+"""Compile expression DAGs into register programs for :func:`engine.kernels.vm.run`.
 
 Each program evaluates a list of ``(output index, node)`` pairs. Nodes are
 visited children-first, each shared node is computed once (the builder has
@@ -11,8 +11,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from engine import vm
-from engine.expr import Node, postorder
+from engine.kernels import vm
+from engine.language.expr import Node, postorder
 
 _OPCODES = {
     "add": vm.ADD, "sub": vm.SUB, "mul": vm.MUL, "div": vm.DIV, "neg": vm.NEG,
@@ -148,7 +148,7 @@ def compile_program(outputs: list[tuple[int, Node]], pool: ConstPool,
 def link(rows: list[tuple], n_consts: int) -> tuple[list[tuple], int]:
     """Replace the load instructions by a prologue; returns (rows, registers it fills).
 
-    The prologue row ``(PROLOGUE, ny, np, nc, t)`` makes :func:`engine.vm.run` copy
+    The prologue row ``(PROLOGUE, ny, np, nc, t)`` makes :func:`engine.kernels.vm.run` copy
     ``y[:ny]``, ``p[:np]``, ``t`` (if set) and ``consts[:nc]`` into the first registers
     in one pass of plain copies; instructions read those registers directly, and the
     working registers follow them. A state or parameter read by many instructions

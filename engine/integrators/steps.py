@@ -1,15 +1,16 @@
 """One attempted step of each dense-path method, with its bookkeeping.
 
 Each ``try_*`` function takes the step size h, runs the method's attempt
-(engine.dormand_prince_54 / radau_iia_5 / rosenbrock_4), applies the method's step-size controller
+(engine.integrators.dormand_prince_54 / radau_iia_5 / rosenbrock_4), applies the method's step-size controller
 and either prepares the step's interpolant (accepted: returns True) or books
 a rejection. Counters and failure kinds go into the driver's state arrays.
 """
 import numpy as np
 from numba import njit
 
-from engine import dormand_prince_54, radau_iia_5, rosenbrock_4, switching, vm
-from engine.state import (FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
+from engine.integrators import dormand_prince_54, radau_iia_5, rosenbrock_4, switching
+from engine.kernels import vm
+from engine.integrators.state import (FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR,
                           F_ERR_OLD, F_H, F_H_LAST, F_H_LU, F_H_OLD, F_HEXP, F_NEWTON_TOL,
                           F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_BAD, F_T_OLD,
                           I_CONT_METHOD, I_FIRST, I_HAS_TIME, I_HAVE_CONT, I_JAC_CURRENT,
@@ -17,8 +18,8 @@ from engine.state import (FAIL_ERROR, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR
                           I_NEWTON_IT, I_NFEV, I_NJEV, I_NLU, I_NONNEG, I_NONNEG_REJECTS,
                           I_REJECTED, V_ERR, V_F, V_F0, V_FDT, V_K, V_NNMASK, V_PV, V_PW,
                           V_SCALE, V_W, V_YNEW, V_YTMP, V_Z)
-from engine.switching import P_BOUNDARY, P_POWER_ITERS
-from engine.tableaux import RADAU_IIA
+from engine.integrators.switching import P_BOUNDARY, P_POWER_ITERS
+from engine.integrators.tableaux import RADAU_IIA
 
 EPS = 2.220446049250313e-16
 

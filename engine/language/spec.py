@@ -10,11 +10,11 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from engine.expr import Builder, ExprError, Node
-from engine.limits import Limits
-from engine.names import name_problem, suggest
-from engine.parser import parse
-from engine.reactions import read_reactions
+from engine.language.expr import Builder, ExprError, Node
+from engine.language.limits import Limits
+from engine.language.names import name_problem, suggest
+from engine.language.parser import parse
+from engine.language.reactions import read_reactions
 
 
 def is_number(v) -> bool:

@@ -1,10 +1,10 @@
 """Radau IIA of order 5 for large sparse systems (SuperLU).
 
-The Python twin of the compiled dense step (engine.steps.try_radau_iia_5 with
-engine.radau_iia_5): Hairer & Wanner II, sec. IV.8. Simplified Newton iterations on
+The Python twin of the compiled dense step (engine.integrators.steps.try_radau_iia_5 with
+engine.integrators.radau_iia_5): Hairer & Wanner II, sec. IV.8. Simplified Newton iterations on
 the transformed collocation system need one real factorisation of
 (MU_REAL/h) I - J and one complex of ((MU_RE + i MU_IM)/h) I - J; both are
-SuperLU factors on the Jacobian's pattern (engine.sparse.Pattern, the complex
+SuperLU factors on the Jacobian's pattern (engine.integrators.sparse.core.Pattern, the complex
 one with the real one's fill-reducing ordering). J and the factors are reused
 as in the dense code: h is kept when the step factor is in [1, 1.2) and Newton
 converged well, and J is re-evaluated after a step whose Newton iteration was
@@ -22,12 +22,13 @@ import math
 import numpy as np
 from numba import njit
 
-from engine import radau_iia_5, state as S, vm
-from engine.driver import _finish
-from engine.errors_norm import err_norm
-from engine.sparse import explicit_cheaper, new_jacobian, next_step, to_explicit
-from engine.steps import nonneg_check, reject
-from engine.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_T, RA_TI,
+from engine.integrators import radau_iia_5, state as S
+from engine.kernels import vm
+from engine.integrators.driver import _finish
+from engine.integrators.errors_norm import err_norm
+from engine.integrators.sparse.core import explicit_cheaper, new_jacobian, next_step, to_explicit
+from engine.integrators.steps import nonneg_check, reject
+from engine.integrators.tableaux import (RA_C, RA_E, RA_MU_IM, RA_MU_RE, RA_MU_REAL, RA_T, RA_TI,
                              RADAU_IIA)
 
 NEWTON_MAXITER = radau_iia_5.NEWTON_MAXITER
@@ -189,7 +190,7 @@ def _reject(run, h, fac, kind):
 
 
 def step(kernel, run, pattern, h):
-    """Attempt one step of size h (engine.steps.try_radau_iia_5); book it when
+    """Attempt one step of size h (engine.integrators.steps.try_radau_iia_5); book it when
     accepted. Returns True when accepted."""
     fs, iw, V = run.fs, run.iw, run.V
     t = fs[S.F_T]
@@ -258,7 +259,7 @@ def step(kernel, run, pattern, h):
 
 
 def advance(kernel, run, pattern, budget):
-    """Python twin of engine.driver.advance for the sparse Radau IIA path."""
+    """Python twin of engine.integrators.driver.advance for the sparse Radau IIA path."""
     iw = run.iw
     steps = 0
     while iw[S.I_STATUS] == S.RUNNING:

@@ -11,11 +11,12 @@ also returns right after a method switch when ``iw[I_SWITCH_RETURNS]`` asks for 
 import numpy as np
 from numba import njit
 
-from engine import dormand_prince_54, radau_iia_5, rosenbrock_4, switching, vm
-from engine.errors_norm import initial_step
-from engine.linalg import copy
-from engine.events import dense_eval, scan
-from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ERR_OLD,
+from engine.integrators import dormand_prince_54, radau_iia_5, rosenbrock_4, switching
+from engine.kernels import vm
+from engine.integrators.errors_norm import initial_step
+from engine.integrators.linalg import copy
+from engine.integrators.events import dense_eval, scan
+from engine.integrators.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ERR_OLD,
                           F_EXPL_NEEDED, F_H, F_H_JCHECK, F_H_LAST, F_H_OLD, F_HEXP, F_HMAX,
                           F_RATE, F_RHO, F_RHO_J, F_RTOL, F_T, F_T_OLD, F_TEND, I_ACCEPTED,
                           I_CONT_METHOD, I_FAIL_KIND, I_FIRST, I_HAVE_CONT, I_HIST_N,
@@ -26,10 +27,10 @@ from engine.state import (DONE, FAIL_NEWTON, FAIL_NONFINITE, FAIL_SINGULAR, F_ER
                           I_TERMINAL, RUNNING,
                           ST_NEWTON_FAILURE, ST_NON_FINITE, ST_STEP_LIMIT, ST_STEP_UNDERFLOW,
                           V_ERR, V_F0, V_K, V_NNMASK, V_PV, V_PW, V_YEV, V_YNEW, V_YTMP)
-from engine.steps import new_jacobian, nonneg_check, try_dormand_prince_54, try_radau_iia_5, try_rosenbrock_4
-from engine.switching import (P_BOUNDARY, P_POWER_ITERS, P_UNSTABLE,
+from engine.integrators.steps import new_jacobian, nonneg_check, try_dormand_prince_54, try_radau_iia_5, try_rosenbrock_4
+from engine.integrators.switching import (P_BOUNDARY, P_POWER_ITERS, P_UNSTABLE,
                               REASON_EXPLICIT_CHEAPER, REASON_STIFF, REASON_UNSTABLE)
-from engine.tableaux import DORMAND_PRINCE, RADAU_IIA, ROSENBROCK
+from engine.integrators.tableaux import DORMAND_PRINCE, RADAU_IIA, ROSENBROCK
 
 EPS = 2.220446049250313e-16
 JAC_CHECK_EVERY = 20  # auto mode: accepted explicit steps between Jacobian checks
@@ -84,15 +85,15 @@ def _history(hist, iw, t, h, method, h_exp):
 @njit(cache=True, nogil=True, _nrt=True)
 def _scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir, ev_term, ev_t, ev_i,
           ev_y, counts, ytmp):
-    """engine.events.scan, compiled with the runtime's allocator (it may need it);
-    the functions around it run without (see engine.vm)."""
+    """engine.integrators.events.scan, compiled with the runtime's allocator (it may need it);
+    the functions around it run without (see engine.kernels.vm)."""
     return scan(kernel, p, regs, method, cont, t_old, h, ynew, gv, ev_dir, ev_term, ev_t,
                 ev_i, ev_y, counts, ytmp)
 
 
 @njit(cache=True, nogil=True, _nrt=True)
 def _dense_any(method, cont, t_old, h, t, out):
-    """engine.events.dense_eval (all methods, BDF of the sparse path included)."""
+    """engine.integrators.events.dense_eval (all methods, BDF of the sparse path included)."""
     dense_eval(method, cont, t_old, h, t, out)
 
 
@@ -187,7 +188,7 @@ def _unstable(kernel, p, regs, y, fs, iw, V, J, jv, pol, h):
 @njit(cache=True, nogil=True, _nrt=False)
 def _switch(fs, iw, swlog, to, reason):
     """Change method; reset the controller memory; ask Python for a return (unless the
-    run keeps going through switches: engine.state.I_SWITCH_RETURNS)."""
+    run keeps going through switches: engine.integrators.state.I_SWITCH_RETURNS)."""
     iw[I_NSWITCH] = switching.log_switch(swlog, iw[I_NSWITCH], fs[F_T], iw[I_METHOD], to,
                                          fs[F_H_LAST], fs[F_RHO], fs[F_HEXP], reason)
     iw[I_METHOD] = to
