@@ -43,11 +43,16 @@ class StrictInteger(fields.Integer):
         return super()._deserialize(value, attr, data, **kwargs)
 
 
+# Below this, the error weights atol + rtol|y| of states near zero overflow the error norms of
+# float64 (their squares pass 1e308); no physical quantity is resolved that finely.
+MIN_ATOL = 1e-60
+
+
 class AbsoluteTolerance(fields.Field):
     """A positive number for every state, or {state: number} with an optional "*" default."""
 
     def _deserialize(self, value, attr, data, **kwargs):
-        number = FiniteFloat(validate=validate.Range(min=0, min_inclusive=False))
+        number = FiniteFloat(validate=validate.Range(min=MIN_ATOL, error=f"must be at least {MIN_ATOL:g}"))
         if isinstance(value, dict):
             errors, out = {}, {}
             for name, v in value.items():
@@ -61,8 +66,8 @@ class AbsoluteTolerance(fields.Field):
         try:
             return number.deserialize(value)
         except ValidationError:
-            raise ValidationError("must be a positive number, or an object of positive numbers "
-                                  "keyed by state name (\"*\" for the rest)")
+            raise ValidationError(f"must be a number of at least {MIN_ATOL:g}, or an object of such "
+                                  "numbers keyed by state name (\"*\" for the rest)")
 
 
 class OutputSchema(Schema):
@@ -132,6 +137,9 @@ class JobSpecSchema(Schema):
             span = None
         if span and span[1] <= span[0]:
             errors["span"] = ["t_end must be greater than t_start"]
+        elif span and not math.isfinite(span[1] - span[0]):
+            errors["span"] = [f"the span's length {span[1]:g} - ({span[0]:g}) overflows float64; "
+                              "shift the time origin or shorten the span"]
         out = data.get("output") if isinstance(data.get("output"), dict) else {}
         if span and span[1] > span[0] and out.get("times"):
             if out["times"][0] < span[0] or out["times"][-1] > span[1]:

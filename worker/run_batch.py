@@ -25,6 +25,7 @@ from jobs import blob as result_blob
 from jobs.batch_store import BatchStore
 from schemas.batch import BatchSpecSchema
 from schemas.job import output_times
+from worker.bounds import PreparationLimit, bounded
 from worker.options import solver_options
 from worker.run_job import Heartbeat
 
@@ -51,8 +52,9 @@ def make_plan(spec: dict, design: dict) -> BatchPlan:
     """Build the plan of a stored batch spec (validated again: a stored spec is still input)."""
     data = BatchSpecSchema(max_members=10 ** 9, max_trajectory_values=10 ** 12).load(spec)
     base = data["base"]
-    model, machine_code = native.choose(prepare(base["model"]), base["machine_code"],
-                                        solves=sampling.design_size(design))
+    with bounded(base["limits"]["max_wall_seconds"]):
+        model, machine_code = native.choose(prepare(base["model"]), base["machine_code"],
+                                            solves=sampling.design_size(design))
     log.info("batch model %s: machine code %s", model.content_hash[:12], machine_code)
     sums = data["summaries"]
     extra = [s["time"] for s in sums if s["kind"] == "at"]
@@ -174,6 +176,9 @@ def run_chunk(store: BatchStore, publish: Callable[[str, int], None], batch_id: 
         try:
             plan = plan_for(store, batch_id)
             result = solve_members(plan, start, stop, lambda: beat.cancel or beat.fenced)
+        except PreparationLimit as e:  # the model cannot be prepared within its bounds
+            result = ChunkResult(np.full((stop - start, 0), np.nan), [e.outcome] * (stop - start),
+                                 {i: e.message for i in range(start, stop)}, None)
         except Exception as e:  # the whole plan is unusable (e.g. the stored spec no longer loads)
             log.error("batch %s chunk %d failed:\n%s", batch_id, chunk, traceback.format_exc())
             msg = f"internal error while preparing the batch ({type(e).__name__}: {e})"

@@ -19,6 +19,7 @@ from engine.model import ModelError, prepare
 from jobs import blob as result_blob
 from jobs.store import JobStore
 from schemas.job import JobSpecSchema, output_times
+from worker.bounds import PreparationLimit, bounded
 from worker.options import solver_options
 
 log = logging.getLogger(__name__)
@@ -87,15 +88,21 @@ def run_job(store: JobStore, job_id: str) -> str:
 def _solve(store: JobStore, job_id: str, beat: Heartbeat):
     try:
         spec = JobSpecSchema().load(store.spec(job_id))
+        # the job's wall-time limit covers preparation and solve; both end before Celery's
+        # soft limit, inside the engine, with diagnostics
+        wall = min(spec["limits"]["max_wall_seconds"], max(store.settings.soft_time_limit - 30, 1))
         t_prep = time.perf_counter()
-        prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
+        with bounded(wall):
+            prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
         prepare_seconds = time.perf_counter() - t_prep
         p, y0 = prepared.with_overrides(spec["parameters"], spec["initial"])
         times = output_times(spec["span"], spec["output"])
-        # end inside the integrator, with diagnostics, before Celery's soft limit
-        options = solver_options(spec, prepared, wall_cap=max(store.settings.soft_time_limit - 30, 1))
+        options = solver_options(spec, prepared, wall_cap=max(wall - prepare_seconds, 0.01))
         sol = integrate(prepared.kernel, p, y0, tuple(spec["span"]), times, options,
                         monitor=beat.monitor, conservation=prepared.conservation)
+    except PreparationLimit as e:
+        log.warning("job %s: %s", job_id, e.message)
+        return "failed", e.outcome, e.message, {}, None
     except (ValidationError, ModelError) as e:
         return "failed", "invalid_spec", f"the stored spec no longer validates: {e}", {}, None
     except Exception as e:  # never let a solve crash the worker

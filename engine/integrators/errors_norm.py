@@ -60,7 +60,8 @@ def initial_step(kernel, p, regs, t, y, f0, atol, rtol, order, hmax, y1, f1):
     for i in range(n):
         sk = atol[i] + rtol * abs(y[i])
         der2 += ((f1[i] - f0[i]) / sk) ** 2
-    der2 = math.sqrt(der2 / max(n, 1)) / h
+    # h is 0 when |f0| overflowed the norm: the run then starts small and ends non_finite
+    der2 = math.sqrt(der2 / max(n, 1)) / h if h > 0.0 else math.inf
     der12 = max(abs(der2), math.sqrt(dnf))
     if not (der12 > 1e-15):
         h1 = max(1e-6, h * 1e-3)

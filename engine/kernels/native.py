@@ -38,7 +38,7 @@ from pathlib import Path
 
 import numpy as np
 
-from engine.kernels import vm
+from engine.kernels import disk_cache, vm
 
 log = logging.getLogger(__name__)
 
@@ -218,7 +218,8 @@ class NativeBuild:
     reason: str         # why not, when not used ("" when used)
 
 
-_lock = threading.Lock()
+_lock = threading.Lock()          # the dictionaries below; held for microseconds
+_compile_lock = threading.Lock()  # one compile at a time in this process
 _modules: dict[str, object] = {}  # digest -> module (keeps the machine code alive)
 
 
@@ -231,15 +232,23 @@ def _load(digest: str, source: str):
     folder = _cache_folder()
     folder.mkdir(parents=True, exist_ok=True)
     path = folder / f"k_{digest}.py"
+    written = False
     if not path.exists() or path.read_text() != source:
         tmp = folder / f".k_{digest}.{os.getpid()}.tmp"
         tmp.write_text(source)
         os.replace(tmp, path)  # atomic: a concurrent worker sees the old or the new file
+        written = True
+    else:
+        disk_cache.touch(path)
     name = f"stifflane_native_k_{digest}"
     spec = importlib.util.spec_from_file_location(name, path)
     module = importlib.util.module_from_spec(spec)
     sys.modules[name] = module
     spec.loader.exec_module(module)
+    if written:  # a new model on disk: keep the folder within its budget
+        with _lock:
+            held = frozenset(_modules) | {digest}
+        disk_cache.prune(folder, keep=held)
     return module
 
 
@@ -260,22 +269,28 @@ def build(kernel: vm.Kernel, n_params: int, compile_new: bool = True) -> NativeB
     digest = hashlib.sha256(source.encode()).hexdigest()[:24]
     with _lock:
         module = _modules.get(digest)
-        if module is None:
-            if not compile_new and not (_cache_folder() / f"k_{digest}.py").exists():
-                return NativeBuild(kernel, False, time.perf_counter() - started,
-                                   "not compiled: a compile would cost more than it saves "
-                                   f"here (about {compile_estimate(kernel):.1f} s)")
-            if len(_modules) >= MAX_PER_PROCESS:
-                return NativeBuild(kernel, False, time.perf_counter() - started,
-                                   f"this process already holds {MAX_PER_PROCESS} compiled models")
-            try:
-                module = _load(digest, source)
-            except Exception as exc:  # noqa: BLE001 - a failed compile leaves the interpreter
-                log.warning("machine code for kernel %s not built: %s: %s", digest,
-                            type(exc).__name__, exc)
-                return NativeBuild(kernel, False, time.perf_counter() - started,
-                                   f"compile failed ({type(exc).__name__}); the interpreter ran")
-            _modules[digest] = module
+    if module is None:
+        if not compile_new and not (_cache_folder() / f"k_{digest}.py").exists():
+            return NativeBuild(kernel, False, time.perf_counter() - started,
+                               "not compiled: a compile would cost more than it saves "
+                               f"here (about {compile_estimate(kernel):.1f} s)")
+        with _compile_lock:
+            with _lock:
+                module = _modules.get(digest)  # compiled by another thread meanwhile
+                full = len(_modules) >= MAX_PER_PROCESS
+            if module is None:
+                if full:
+                    return NativeBuild(kernel, False, time.perf_counter() - started,
+                                       f"this process already holds {MAX_PER_PROCESS} compiled models")
+                try:
+                    module = _load(digest, source)
+                except Exception as exc:  # noqa: BLE001 - a failed compile leaves the interpreter
+                    log.warning("machine code for kernel %s not built: %s: %s", digest,
+                                type(exc).__name__, exc)
+                    return NativeBuild(kernel, False, time.perf_counter() - started,
+                                       f"compile failed ({type(exc).__name__}); the interpreter ran")
+                with _lock:
+                    _modules[digest] = module
     native = kernel._replace(native_rhs=int(module.rhs.address), native_jac=int(module.jac.address),
                              native_events=int(module.events.address) if kernel.n_events else 0)
     return NativeBuild(native, True, time.perf_counter() - started, "")
@@ -329,15 +344,58 @@ def choose(prepared, mode: str = AUTO, solves: int = 1):
                 _uses.pop(next(iter(_uses)))
     if known is not None:
         return replace(prepared, kernel=known), {"used": True, "seconds": 0.0, "reason": ""}
-    compile_new = (mode == ALWAYS or solves >= BATCH_MIN_MEMBERS
-                   or (seen > 0 and compile_estimate(prepared.kernel) <= REPEAT_MAX_SECONDS))
-    result = build(prepared.kernel, len(prepared.param_names), compile_new=compile_new)
+    compile_now = mode == ALWAYS or solves >= BATCH_MIN_MEMBERS
+    result = build(prepared.kernel, len(prepared.param_names), compile_new=compile_now)
     info = {"used": result.used, "seconds": round(result.seconds, 6), "reason": result.reason}
     if not result.used:
+        if (not compile_now and key and seen > 0
+                and compile_estimate(prepared.kernel) <= REPEAT_MAX_SECONDS
+                and _compile_in_background(key, prepared.kernel, len(prepared.param_names))):
+            info["reason"] = ("asked for again: machine code is compiling in the background for "
+                              "the next run of this model; this run used the interpreter")
         return prepared, info
+    _remember(key, result.kernel)
+    return replace(prepared, kernel=result.kernel), info
+
+
+_pending: set[str] = set()  # content hashes compiling in a background thread
+
+
+def _remember(key: str, kernel: vm.Kernel) -> None:
     if key:
         with _lock:
-            _kernels[key] = result.kernel
+            _kernels[key] = kernel
             while len(_kernels) > 4 * MAX_PER_PROCESS:
                 _kernels.pop(next(iter(_kernels)))
-    return replace(prepared, kernel=result.kernel), info
+
+
+def _compile_in_background(key: str, kernel: vm.Kernel, n_params: int) -> bool:
+    """Start compiling a model's machine code in a daemon thread (once per model); the
+    run that asked goes on with the interpreter, later runs find the machine code."""
+    with _lock:
+        if key in _pending or len(_pending) >= 2:
+            return key in _pending
+        _pending.add(key)
+
+    def work():
+        try:
+            result = build(kernel, n_params, compile_new=True)
+            if result.used:
+                _remember(key, result.kernel)
+        finally:
+            with _lock:
+                _pending.discard(key)
+
+    threading.Thread(target=work, name=f"machine-code-{key[:12]}", daemon=True).start()
+    return True
+
+
+def wait_for_background(timeout: float = 60.0) -> bool:
+    """Until no background compile runs (tests, orderly shutdown); True when none is left."""
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        with _lock:
+            if not _pending:
+                return True
+        time.sleep(0.01)
+    return False

@@ -70,6 +70,10 @@ def _div(a, b):
     return a / b
 
 
+_CLAMPED = frozenset({"exp", "sinh", "cosh"})
+_EXP_ARG_MAX = 709.78  # exp(709.78) is about 1.8e308, the largest float64
+
+
 def _clip(x):
     return min(max(x, -709.0), 709.0)
 
@@ -152,6 +156,12 @@ class Builder:
         return None
 
     def unary(self, op: str, x: Node) -> Node:
+        if x.is_const and self.strict and op in _CLAMPED and abs(x.value) > _EXP_ARG_MAX \
+                and (op != "exp" or x.value > 0):
+            # evaluation clamps the argument (so a state that grows stays finite), but a
+            # constant the user wrote that overflows is an error, not a clamped number
+            raise ExprError(f"{op}({x.value:g}) overflows float64 (arguments up to about "
+                            f"{_EXP_ARG_MAX:g} are representable)")
         if x.is_const:
             folded = self._fold(UNARY[op], x.value)
             if folded is not None:

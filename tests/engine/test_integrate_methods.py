@@ -183,7 +183,7 @@ def test_counts_report_matches_the_full_report_and_survives_later_runs():
         assert lean.report[key] == full.report[key], key
     assert lean.report["switch_count"] >= 1 and lean.report["seconds_per_method"] is None
     assert lean.report is lean.report  # built once
-    assert 0.0 < lean.report["solve_seconds"] < 1.0
+    assert lean.report["solve_seconds"] > 0.0  # measured (speed itself lives in bench/)
 
 
 def test_a_counts_solution_is_freed_without_the_cycle_collector():

@@ -173,3 +173,19 @@ def test_report_is_json_safe_and_named(method):
 def test_large_atol_warns():
     sol = solve(K.ROBERTSON, 1.0, np.linspace(0, 1, 5), rtol=1e-6, atol=1e-3)
     assert any("atol" in w for w in sol.report["warnings"])
+
+
+def test_a_right_hand_side_too_large_for_the_error_norm_ends_non_finite():
+    # |f| = 1e300 * y^2 overflows the squared norm of the starting-step estimate
+    # (Hairer, Norsett & Wanner I, II.4): the run must end with an outcome, not an exception.
+    spec = {"states": {"y": 1.0}, "ddt": {"y": "1e300*y*y"}}
+    for method in ("auto", "dormand_prince_54"):
+        sol = solve(spec, 1.0, method=method)
+        assert sol.outcome == I.NON_FINITE and "non-finite" in sol.message
+
+
+def test_a_tiny_absolute_tolerance_on_a_zero_state_still_solves():
+    # atol far below any physical scale, state exactly zero: weights 1/atol must not divide by 0
+    sol = solve({"states": {"y": 1.0, "z": 0.0}, "ddt": {"y": "-y", "z": "0"}}, 1.0, atol=1e-60)
+    assert sol.outcome == I.SUCCEEDED
+    assert sol.y_reached[0] == pytest.approx(math.exp(-1.0), rel=1e-5)

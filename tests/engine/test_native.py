@@ -8,6 +8,7 @@ from __future__ import annotations
 
 from dataclasses import replace
 
+import os
 import numpy as np
 import pytest
 from hypothesis import assume, given, settings, strategies as st
@@ -195,7 +196,10 @@ def test_auto_compiles_on_second_use_or_for_large_batches_and_never_means_never(
     batch = prepare(lorenz_variant(0.375, "policy test: batch"))
     m, info = native.choose(single, native.AUTO)  # nothing compiled on disk: interpreted
     assert not info["used"] and "cost more than it saves" in info["reason"] and m is single
-    m, info = native.choose(single, native.AUTO)  # asked again: worth compiling now
+    m, info = native.choose(single, native.AUTO)  # asked again: compiled in the background,
+    assert not info["used"] and "background" in info["reason"]  # this run does not wait for it
+    assert native.wait_for_background()
+    m, info = native.choose(single, native.AUTO)  # the next run finds the machine code
     assert info["used"] and m.kernel.native_rhs != 0
     assert list(empty_disk_cache.glob("k_*.py"))  # kept on disk for the next process
     m, info = native.choose(batch, native.NEVER, solves=10_000)
@@ -245,3 +249,23 @@ def test_unknown_machine_code_option_is_refused():
     m = prepare(K.LORENZ)
     with pytest.raises(ValueError, match="machine_code"):
         solve(m, 1.0, "auto", 1e-6, 1e-9, machine_code="sometimes")
+
+
+def test_the_disk_cache_drops_the_least_recently_used_models_beyond_its_budget(tmp_path):
+    from engine.kernels import disk_cache
+
+    folder, compiled = tmp_path / "native", tmp_path / "native_0a1b"
+    folder.mkdir()
+    compiled.mkdir()
+    for age, digest in enumerate(["old", "mid", "new"]):
+        module = folder / f"k_{digest}.py"
+        module.write_bytes(b"x" * 1000)
+        (compiled / f"k_{digest}.rhs-10.py311.nbi").write_bytes(b"y" * 500)
+        os.utime(module, (1000.0 + age, 1000.0 + age))
+    assert disk_cache.usage(folder) == (3, 4500)
+    disk_cache.touch(folder / "k_old.py")  # used just now: the newest
+    assert disk_cache.prune(folder, budget=3000) == 1
+    assert sorted(p.name for p in folder.iterdir()) == ["k_new.py", "k_old.py"]
+    assert not list(compiled.glob("k_mid.*"))
+    assert disk_cache.prune(folder, budget=0, keep=frozenset({"new"})) == 1
+    assert disk_cache.usage(folder) == (1, 1500)
