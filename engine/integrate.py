@@ -19,9 +19,10 @@ import numpy as np
 from engine.integrators import driver, state as S
 from engine.integrators.workspace import give_back, take_run
 from engine.kernels import native, vm
-from engine.diagnostics.messages import message
+from engine.diagnostics.messages import STIFF_RATIO, Evidence, diagnosis, grown_states, message
+from engine.diagnostics import stiffness
 from engine.diagnostics.report import aux_at_outputs, build_report
-from engine.integrators.switching import SwitchPolicy
+from engine.integrators.switching import P_BOUNDARY, SwitchPolicy
 from engine.integrators.tableaux import BDF, DORMAND_PRINCE, METHOD_NAMES, RADAU_IIA, ROSENBROCK
 
 from engine.choices import METHODS  # noqa: E402  (numba-free, read by the API)
@@ -55,6 +56,7 @@ class SolverOptions:
     # its compile would take) continues on machine code (engine.kernels.native), with the same
     # values; "never" (default here; jobs pass their own option): never mid-run
     machine_code: str = "never"
+    state_names: tuple = ()  # for messages that name states (default "y[i]")
 
 
 @dataclass
@@ -205,6 +207,37 @@ def _message(outcome, run, o, kernel):
                    int(run.iw[S.I_TERMINAL]), o.rtol, o.max_steps, o.max_wall_seconds)
 
 
+def _evidence(kernel, run, o, report) -> Evidence:
+    """Why the run ended, from its arrays (and, with full diagnostics, the stiffness samples
+    of the report plus one at the last state reached)."""
+    fs, iw = run.fs, run.iw
+    ratio = ratio_t = stiff_from = None
+    samples = list((report or {}).get("stiffness_samples") or ())
+    if report is not None:
+        samples += stiffness.sample(kernel, run.p, np.array([fs[S.F_T]]), run.y[None, :].copy(),
+                                    float(run.pol[P_BOUNDARY]))
+    for sample in samples:
+        r = sample.get("stiffness_ratio")
+        if r is not None and (ratio is None or r > ratio):
+            ratio, ratio_t = r, sample["t"]
+        if r is not None and r >= STIFF_RATIO and stiff_from is None:
+            stiff_from = sample["t"]
+    if ratio is not None and ratio < STIFF_RATIO:
+        ratio = ratio_t = None  # not worth quoting
+    k = min(int(iw[S.I_NSWITCH]), len(run.swlog))
+    if stiff_from is None and k:  # auto's first switch to an implicit method
+        to_implicit = [row[0] for row in run.swlog[:k] if int(row[2]) != DORMAND_PRINCE]
+        stiff_from = float(to_implicit[0]) if to_implicit else None
+    names = o.state_names or tuple(f"y[{i}]" for i in range(len(run.y)))
+    last = np.where(np.isfinite(run.V[S.V_YNEW]), np.maximum(np.abs(run.V[S.V_YNEW]), np.abs(run.y)),
+                    np.inf)
+    return Evidence(method=METHOD_NAMES[int(iw[S.I_METHOD])], pinned=o.method != "auto",
+                    rho=float(fs[S.F_RHO]), h_last=float(fs[S.F_H_LAST]),
+                    boundary=float(run.pol[P_BOUNDARY]), stiffness_ratio=ratio, ratio_at=ratio_t,
+                    stiff_from=stiff_from,
+                    grew=grown_states(names, run.y0, last))
+
+
 def _solution(kernel, run, stop, o, conservation, secs, started):
     outcome = stop or _STATUS[int(run.iw[S.I_STATUS])]
     k = int(run.iw[S.I_IOUT])
@@ -224,7 +257,11 @@ def _solution(kernel, run, stop, o, conservation, secs, started):
         sol.event_y = run.ev_y[:ne].copy()
     if o.diagnostics == "full":
         sol.report = build_report(kernel, run, o, sol, conservation, secs, started)
-    else:  # "counts": counters and switch log only; the run's arrays go back to the pool
+    if outcome in (STEP_LIMIT, TIME_LIMIT, NON_FINITE, STEP_UNDERFLOW):
+        why = diagnosis(outcome, _evidence(kernel, run, o, sol.report if o.diagnostics == "full" else None))
+        if why:
+            sol.message += "; " + why
+    if o.diagnostics != "full":  # "counts": counters and switch log only; the run's arrays go back to the pool
         snap = _Counters(run, sol.y if conservation is not None else None)
         seconds = time.perf_counter() - started
         # the closure holds the snapshot, not the Solution (no reference cycle: a sweep's

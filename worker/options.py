@@ -23,4 +23,4 @@ def solver_options(job: dict, model: PreparedModel, wall_cap: float | None = Non
         # the job's switch covers every state; the model may mark single states too
         nonnegative=np.asarray(model.nonnegative, dtype=bool) | bool(job["nonnegative"]),
         event_directions=model.event_directions, event_terminal=model.event_terminal,
-        diagnostics=diagnostics, machine_code=job["machine_code"])
+        diagnostics=diagnostics, machine_code=job["machine_code"], state_names=tuple(model.state_names))

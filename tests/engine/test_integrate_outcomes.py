@@ -189,3 +189,29 @@ def test_a_tiny_absolute_tolerance_on_a_zero_state_still_solves():
     sol = solve({"states": {"y": 1.0, "z": 0.0}, "ddt": {"y": "-y", "z": "0"}}, 1.0, atol=1e-60)
     assert sol.outcome == I.SUCCEEDED
     assert sol.y_reached[0] == pytest.approx(math.exp(-1.0), rel=1e-5)
+
+
+def test_a_stiff_model_pinned_to_the_explicit_method_is_told_to_use_auto():
+    # Robertson is the textbook stiff system (Hairer & Wanner II, sec. IV.1)
+    sol = solve(K.ROBERTSON, 1e5, method="dormand_prince_54", max_steps=20_000)
+    assert sol.outcome == I.STEP_LIMIT
+    assert "the model is stiff (stiffness ratio ~" in sol.message
+    assert "you pinned (dormand_prince_54)" in sol.message and "use method 'auto'" in sol.message
+
+
+def test_the_wall_time_message_names_the_method_and_whether_the_run_was_stiff():
+    sol = solve(K.LORENZ, 1e7, method="auto", max_steps=10**12, max_wall_seconds=0.3)
+    assert sol.outcome == I.TIME_LIMIT
+    assert "the run was on dormand_prince_54" in sol.message and "did not look stiff" in sol.message
+
+
+@pytest.mark.parametrize("method", ["auto", "radau_iia_5"])
+def test_a_blow_up_names_the_state_that_grew_without_bound(method):
+    # x' = x^2, x(0) = 1 has the solution 1/(1 - t): it blows up at t = 1 (closed form)
+    spec = {"states": {"x": 1.0, "z": 2.0}, "ddt": {"x": "x*x", "z": "-z"}}
+    m = K.model(spec)
+    o = SolverOptions(method=method, state_names=m.state_names)
+    sol = integrate(m.kernel, m.p, m.y0, (0.0, 2.0), np.array([2.0]), o)
+    assert sol.outcome in (I.STEP_UNDERFLOW, I.NON_FINITE)
+    assert sol.t_reached == pytest.approx(1.0, abs=1e-3)
+    assert "x (|value|" in sol.message and "grows without bound" in sol.message and "z (" not in sol.message
