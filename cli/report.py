@@ -89,6 +89,7 @@ def format_report(result: dict) -> str:
                  s.get("explicit_step", s.get("h_stability")), s.get("reason", "")] for s in switches]
         parts.append("\nMethod switches\n" + table(rows, ["t", "from", "to", "h", "rho", "explicit step",
                                                           "reason"]))
+        parts += [f"  - {s['explanation']}" for s in switches if s.get("explanation")]
     samples = rep.get("stiffness_samples") or []
     if samples:
         rows = [[s.get("t"), s.get("spectral_radius"), s.get("stiffness_ratio"), s.get("explicit_step")]

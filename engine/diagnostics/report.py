@@ -32,10 +32,29 @@ def _switches(run):
     rows = run.swlog[:min(int(run.iw[S.I_NSWITCH]), len(run.swlog))].tolist()
     out = []
     for r in rows:
-        out.append({"t": _num(r[0]), "from": METHOD_NAMES[int(r[1])],
-                    "to": METHOD_NAMES[int(r[2])], "h": _num(r[3]), "rho": _num(r[4]),
-                    "explicit_step": _num(r[5]), "reason": REASON_NAMES[int(r[6])]})
+        entry = {"t": _num(r[0]), "from": METHOD_NAMES[int(r[1])],
+                 "to": METHOD_NAMES[int(r[2])], "h": _num(r[3]), "rho": _num(r[4]),
+                 "explicit_step": _num(r[5]), "reason": REASON_NAMES[int(r[6])]}
+        entry["explanation"] = explain_switch(entry)
+        out.append(entry)
     return out
+
+
+def explain_switch(s: dict) -> str:
+    """One sentence on why the run changed method, from the switch log's numbers."""
+    t, h, rho, hexp = s["t"], s["h"], s["rho"], s["explicit_step"]
+    if None in (t, h, rho, hexp):
+        return f"switched from {s['from']} to {s['to']} ({s['reason']})"
+    if s["reason"] == "stiffness_detected":
+        return (f"at t = {t:.4g} the explicit step ({h:.3g}) had reached its stability limit "
+                f"{hexp:.3g} (the fastest decay rate is {rho:.3g}, so steps beyond about "
+                f"{hexp:.3g} would be unstable) while the error estimate allowed longer steps: "
+                f"stability, not accuracy, was setting the step, so the run went on with {s['to']}")
+    if s["reason"] == "explicit_step_unstable":
+        return (f"at t = {t:.4g} the explicit method's steps kept failing at the stability limit "
+                f"{hexp:.3g} (fastest decay rate {rho:.3g}): the run went on with {s['to']}")
+    return (f"at t = {t:.4g} the implicit step ({h:.3g}) had fallen to about the explicit "
+            f"method's stable step {hexp:.3g}: the cheaper explicit method {s['to']} took over")
 
 
 _METHOD_ARRAY = np.array(METHOD_NAMES, dtype=object)
