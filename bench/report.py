@@ -143,7 +143,16 @@ def markdown(result: dict) -> str:
     sw = result.get("sweep")
     if sw:
         lines += ["", f"Sweep: {sw['members']} Robertson solves in {sw['seconds']:.2f} s = "
-                      f"**{sw['solves_per_second']:.0f} solves/s** on one core ({sw['note']}).", ""]
+                      f"**{sw['solves_per_second']:.0f} solves/s** on one core, "
+                      f"{_f(sw.get('digits'), '.1f')} digits ({sw['note']})."]
+        od = sw.get("odeint") or {}
+        if od.get("members"):
+            lines += [f"Same sweep with {od['note']}: {od['members']} solves in {od['seconds']:.2f} s = "
+                      f"**{od['solves_per_second']:.0f} solves/s** at rtol {od['rtol']:g}, "
+                      f"{_f(od.get('digits'), '.1f')} digits (the loosest rtol matching the engine's)."]
+        elif od:
+            lines += [f"odeint sweep: {od.get('note')}"]
+        lines += [""]
     svc = result.get("service")
     if svc:
         lines += ["### Service", ""] + [f"- {k}: {v}" for k, v in svc.items()] + [""]
