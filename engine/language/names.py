@@ -37,9 +37,24 @@ def name_problem(name: object, max_length: int) -> str | None:
     return None
 
 
+def one_edit_apart(a: str, b: str) -> bool:
+    """True when one substitution, insertion, deletion or swap of neighbours turns a into b."""
+    if a == b or abs(len(a) - len(b)) > 1:
+        return False
+    if len(a) == len(b):
+        diff = [i for i, (x, y) in enumerate(zip(a, b)) if x != y]
+        return len(diff) == 1 or (len(diff) == 2 and diff[1] == diff[0] + 1
+                                  and a[diff[0]] == b[diff[1]] and a[diff[1]] == b[diff[0]])
+    short, long_ = (a, b) if len(a) < len(b) else (b, a)
+    i = next((k for k, (x, y) in enumerate(zip(short, long_)) if x != y), len(short))
+    return short[i:] == long_[i + 1:]
+
+
 def suggest(name: str, known) -> str | None:
     """A "did you mean ...?" hint for an unknown name, or None."""
     close = difflib.get_close_matches(name, list(known), n=3, cutoff=0.6)
+    if not close:  # short names: one letter or digit off ('H3' for 'H2', 'kf' for 'k_f')
+        close = [k for k in known if one_edit_apart(name, k)][:3]
     if not close:
         lowered = {k.lower(): k for k in known}
         if name.lower() in lowered:

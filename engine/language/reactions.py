@@ -95,9 +95,14 @@ def parse_equation(text: object, species, limits: Limits = DEFAULT_LIMITS) -> Eq
     for i, ch in enumerate(text):
         if not (" " <= ch <= "~"):
             raise ExprError(f"character {ch!r} is not allowed; use printable ASCII only", i)
-    arrows = [(m.start(), m.group()) for m in re.finditer(r"<=>|->|<->|=>|<-|=", text)]
-    if len(arrows) != 1 or arrows[0][1] not in ("->", "<=>"):
-        where = arrows[1][0] if len(arrows) > 1 else (arrows[0][0] if arrows else None)
+    arrows = [(m.start(), m.group()) for m in re.finditer(r"<=>|<->|->|=>|<-|=", text)]
+    if len(arrows) == 1 and arrows[0][1] not in ("->", "<=>"):
+        at, got = arrows[0]
+        meant = "<=>" if got == "<->" else "->"
+        raise ExprError(f"'{got}' is not an arrow of the model language: use '->' (irreversible) "
+                        f"or '<=>' (reversible)", at, f"did you mean '{meant}'?")
+    if len(arrows) != 1:
+        where = arrows[1][0] if len(arrows) > 1 else None
         raise ExprError("an equation needs exactly one arrow: '->' (irreversible) or "
                         "'<=>' (reversible)", where)
     at, arrow = arrows[0]
@@ -335,7 +340,7 @@ def _one_reaction(r, j, item):
                 r.issue((*path, "k_reverse"), "is required for a reversible '<=>' reaction")
             else:
                 kr = r.expr(item["k_reverse"], (*path, "k_reverse"))
-        elif "k_reverse" in item:
+        elif "k_reverse" in item and eq is not None:  # an unreadable equation says enough
             r.issue((*path, "k_reverse"), "only for reversible '<=>' reactions")
         if eq is None or k is None or (eq.reversible and kr is None):
             return

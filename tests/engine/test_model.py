@@ -225,3 +225,17 @@ def test_parse_and_prepare_raise_no_dangerous_audit_events():
     finally:
         active[0] = False
     assert seen == []
+
+
+@pytest.mark.parametrize("arrow, meant", [("=>", "->"), ("<->", "<=>")])
+def test_a_foreign_arrow_gets_one_error_with_the_arrow_we_meant(arrow, meant):
+    model = {"states": {"A": 1.0, "B": 0.0},
+             "reactions": [{"equation": f"A {arrow} B", "k": 1.0, "k_reverse": 2.0}]}
+    issues = check_model(model)
+    assert [i.path for i in issues] == [("reactions", 0, "equation")]  # no k_reverse noise
+    assert issues[0].position == 2 and issues[0].suggestion == f"did you mean '{meant}'?"
+
+
+def test_a_name_one_character_off_gets_a_suggestion():
+    issues = issues_at({"states": {"A": 1.0, "H2": 0.0}, "ddt": {"A": "-H3*A"}})
+    assert issues[("ddt", "A")].suggestion == "did you mean 'H2'?"
