@@ -1,0 +1,57 @@
+"""The OpenAPI 3.1 document served at /v1/openapi.json, generated from the running app.
+
+Each view documents itself: the YAML after ``---`` in its docstring is its operation
+(apispec's FlaskPlugin reads it and finds the view's URL rule), with components named by
+string (``schema: JobSpec``, responses such as ``404: NotFound``) from schemas/openapi.py.
+What every secured route can answer is added here once rather than in every docstring: 400
+(a credential in the URL, see service/auth.py), 401, 429 (the key's rate window) and 503
+(Redis unreachable, service/problems.py). An operation with ``security: []`` is public.
+"""
+from __future__ import annotations
+
+import json
+
+from apispec_webframeworks.flask import FlaskPlugin
+from flask import Flask
+
+from schemas.openapi import finish, new_spec, problem_ref
+
+AUTH_RESPONSES = (400, 401, 429, 503)
+METHODS = ("get", "put", "post", "delete", "patch")
+
+
+def build(app: Flask, version: str) -> dict:
+    """The document for ``app``: every view whose docstring has an operation."""
+    spec = new_spec(version, [FlaskPlugin()])
+    adjusters = []
+    for rule in sorted(app.url_map.iter_rules(), key=lambda r: (r.rule, r.endpoint)):
+        view = app.view_functions.get(rule.endpoint)
+        if view is None or "\n---" not in "\n" + "\n".join(
+                line.strip() for line in (view.__doc__ or "").splitlines()):
+            continue
+        spec.path(view=view, app=app)
+        if hasattr(view, "openapi_adjust"):  # a view whose operation depends on the settings
+            adjusters.append(view.openapi_adjust)
+    doc = finish(spec.to_dict())
+    for adjust in adjusters:
+        adjust(app, doc)
+    for ops in doc["paths"].values():
+        for method, op in ops.items():
+            if method not in METHODS:
+                continue
+            responses = {str(code): r for code, r in op.get("responses", {}).items()}
+            if op.get("security") != []:
+                for status in AUTH_RESPONSES:
+                    responses.setdefault(str(status), problem_ref(status))
+            op["responses"] = dict(sorted(responses.items()))
+    return doc
+
+
+def document_text(app: Flask) -> str:
+    """The document as JSON text, built once per app."""
+    cached = app.extensions.get("stifflane.openapi")
+    if cached is None:
+        from service.app import VERSION
+
+        cached = app.extensions["stifflane.openapi"] = json.dumps(build(app, VERSION))
+    return cached
