@@ -6,13 +6,16 @@ string (``schema: JobSpec``, responses such as ``404: NotFound``) from schemas/o
 What every secured route can answer is added here once rather than in every docstring: 400
 (a credential in the URL, see service/auth.py), 401, 429 (the key's rate window) and 503
 (Redis unreachable, service/problems.py). An operation with ``security: []`` is public.
+
+The document is also the list of query parameters each operation takes: :func:`install`
+refuses any other (400 naming it), so a misspelt ``?limt=5`` is not silently ignored.
 """
 from __future__ import annotations
 
 import json
 
 from apispec_webframeworks.flask import FlaskPlugin
-from flask import Flask
+from flask import Flask, request
 
 from schemas.openapi import finish, new_spec, problem_ref
 
@@ -55,3 +58,42 @@ def document_text(app: Flask) -> str:
 
         cached = app.extensions["stifflane.openapi"] = json.dumps(build(app, VERSION))
     return cached
+
+
+def _query_parameters(app: Flask) -> dict[tuple[str, str], frozenset]:
+    """(OpenAPI path, METHOD) -> the query parameter names the document gives it."""
+    cached = app.extensions.get("stifflane.openapi.query")
+    if cached is None:
+        doc = json.loads(document_text(app))
+        named = doc["components"]["parameters"]
+        cached = {}
+        for path, ops in doc["paths"].items():
+            for method, op in ops.items():
+                if method not in METHODS:
+                    continue
+                params = [named[p["$ref"].rsplit("/", 1)[1]] if "$ref" in p else p
+                          for p in op.get("parameters", [])]
+                cached[(path, method.upper())] = frozenset(p["name"] for p in params if p["in"] == "query")
+        app.extensions["stifflane.openapi.query"] = cached
+    return cached
+
+
+def install(app: Flask) -> None:
+    """Refuse query parameters an operation does not document (after authentication)."""
+    from service.problems import ApiProblem
+
+    @app.before_request
+    def _documented_query_only():
+        if not request.args or request.url_rule is None:
+            return
+        method = "GET" if request.method == "HEAD" else request.method
+        known = _query_parameters(app).get((FlaskPlugin.flaskpath2openapi(request.url_rule.rule), method))
+        if known is None:
+            return
+        unknown = sorted(set(request.args) - known)
+        if unknown:
+            takes = ", ".join(sorted(known)) or "none"
+            raise ApiProblem(400, "Bad Request", f"unknown query parameter(s) {', '.join(map(repr, unknown))}; "
+                             f"this operation takes: {takes}",
+                             errors=[{"pointer": f"/query/{name}", "detail": "not a parameter of this operation"}
+                                     for name in unknown])

@@ -18,6 +18,8 @@ import uuid
 import pytest
 import schemathesis
 from hypothesis import HealthCheck, given, settings
+from hypothesis.errors import Unsatisfiable
+from schemathesis import GenerationMode
 from schemathesis import checks
 from schemathesis.core.failures import Failure
 
@@ -107,3 +109,27 @@ def test_every_operation_conforms_and_never_fails_with_5xx(api_schema, contract_
                                additional_checks=[schema_valid_data_is_accepted])
 
     check()
+
+
+@pytest.mark.parametrize("method, path", OPERATIONS, ids=[f"{m} {p}" for m, p in OPERATIONS])
+def test_requests_the_document_forbids_are_refused(api_schema, contract_app, method, path):
+    """Negative cases: a body, query or path that breaks the document gets a 4xx, never a 2xx."""
+    _, auth = contract_app
+    operation = api_schema[path][method]
+
+    @given(case=operation.as_strategy(generation_mode=GenerationMode.NEGATIVE))
+    @settings(max_examples=EXAMPLES // 2, deadline=None, derandomize=True, database=None,
+              suppress_health_check=list(HealthCheck))
+    def check(case):
+        CASES["run"] += 1
+        case.call_and_validate(headers=auth)
+
+    try:
+        check()
+    except Unsatisfiable:
+        pytest.skip("the operation takes no input that could be made invalid")
+
+
+def test_zz_report_the_number_of_cases(capsys):
+    with capsys.disabled():
+        print(f"\ncontract cases run: {CASES['run']}")
