@@ -3,9 +3,10 @@
 Each view documents itself: the YAML after ``---`` in its docstring is its operation
 (apispec's FlaskPlugin reads it and finds the view's URL rule), with components named by
 string (``schema: JobSpec``, responses such as ``404: NotFound``) from schemas/openapi.py.
-What every secured route can answer is added here once rather than in every docstring: 400
-(a credential in the URL, see service/auth.py), 401, 429 (the key's rate window) and 503
-(Redis unreachable, service/problems.py). An operation with ``security: []`` is public.
+What every route can answer is added here once rather than in every docstring: 400 (a query
+parameter the operation does not take, see :func:`install`), and on every secured route 401,
+429 (the key's rate window) and 503 (Redis unreachable, service/problems.py). An operation
+with ``security: []`` is public.
 
 The document is also the list of query parameters each operation takes: :func:`install`
 refuses any other (400 naming it), so a misspelt ``?limt=5`` is not silently ignored.
@@ -19,7 +20,7 @@ from flask import Flask, request
 
 from schemas.openapi import finish, new_spec, problem_ref
 
-AUTH_RESPONSES = (400, 401, 429, 503)
+AUTH_RESPONSES = (401, 429, 503)
 METHODS = ("get", "put", "post", "delete", "patch")
 
 
@@ -43,6 +44,7 @@ def build(app: Flask, version: str) -> dict:
             if method not in METHODS:
                 continue
             responses = {str(code): r for code, r in op.get("responses", {}).items()}
+            responses.setdefault("400", problem_ref(400))
             if op.get("security") != []:
                 for status in AUTH_RESPONSES:
                     responses.setdefault(str(status), problem_ref(status))

@@ -39,16 +39,21 @@ def operations(doc):
             yield path, method, op
 
 
-def test_the_document_declares_bearer_keys_and_only_health_and_itself_are_public(doc):
+def test_the_document_declares_bearer_keys_and_only_health_and_itself_are_public(secured):
+    app, _ = secured
+    doc = app.test_client().get("/v1/openapi.json").get_json()
     assert doc["components"]["securitySchemes"]["bearerAuth"] == {
         "type": "http", "scheme": "bearer",
         "description": doc["components"]["securitySchemes"]["bearerAuth"]["description"]}
     assert doc["security"] == [{"bearerAuth": []}]
     public = {path for path, _, op in operations(doc) if op.get("security") == []}
     assert public == {"/v1/health", "/v1/openapi.json"}
+    assert all("400" in op["responses"] for _, _, op in operations(doc))  # unknown query parameters
 
 
-def test_every_secured_operation_documents_the_auth_responses_as_problem_json(doc):
+def test_every_secured_operation_documents_the_auth_responses_as_problem_json(secured):
+    app, _ = secured
+    doc = app.test_client().get("/v1/openapi.json").get_json()
     for path, method, op in operations(doc):
         if op.get("security") == []:
             continue
