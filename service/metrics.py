@@ -14,7 +14,7 @@ from __future__ import annotations
 import time
 
 from flask import Blueprint, Response, current_app, request
-from prometheus_client import CONTENT_TYPE_LATEST, generate_latest
+from prometheus_client import generate_latest
 from prometheus_client.core import CollectorRegistry, CounterMetricFamily, GaugeMetricFamily, HistogramMetricFamily
 from prometheus_client.registry import Collector
 from redis.exceptions import RedisError
@@ -24,6 +24,7 @@ from jobs import metrics as store_metrics
 from service.problems import ApiProblem
 
 bp = Blueprint("metrics", __name__)
+CONTENT_TYPE = "text/plain; version=0.0.4; charset=utf-8"  # the Prometheus text exposition format
 ACCESS = ("admin", "public", "off")
 HELP = {
     "job_solve_seconds": "Wall time of a finished job from its first start to its finish (prepare and solve)",
@@ -124,8 +125,7 @@ def metrics():
     if ctx.settings.metrics_access not in ACCESS or ctx.settings.metrics_access == "off":
         raise ApiProblem(404, "Not Found", "metrics are switched off (STIFFLANE_METRICS_ACCESS=off)")
     _authorize(ctx.settings, ctx.store)
-    return Response(generate_latest(_registry()), mimetype=CONTENT_TYPE_LATEST.split(";")[0],
-                    headers={"Content-Type": CONTENT_TYPE_LATEST, "Cache-Control": "no-store"})
+    return Response(generate_latest(_registry()), content_type=CONTENT_TYPE, headers={"Cache-Control": "no-store"})
 
 
 def _document(app, doc: dict) -> None:
