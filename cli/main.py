@@ -58,7 +58,8 @@ def _env(redis_url: str | None = None) -> dict:
 def api_command(host: str, port: int, workers: int = 2) -> list[str]:
     return [sys.executable, "-m", "gunicorn", "--bind", f"{host}:{port}", "--workers", str(workers),
             "--threads", "4", "--timeout", "60", "--graceful-timeout", "5",
-            "--access-logfile", "-", "service:create_app()"]
+            "--access-logfile", "-", "--logger-class", "service.access_log.Logger",  # JSON lines on request
+            "service:create_app()"]
 
 
 def worker_command(concurrency: int, queues: str | None = None) -> list[str]:
@@ -66,7 +67,10 @@ def worker_command(concurrency: int, queues: str | None = None) -> list[str]:
 
     settings = Settings.from_env()
     queues = queues or f"{settings.interactive_queue},{settings.batch_queue}"
-    return [sys.executable, "-m", "celery", "-A", "worker.celery_app", "worker", "--loglevel", "INFO",
+    from jobs.logs import log_format
+
+    quiet = ["--quiet"] if log_format() == "json" else []  # no banner: every line is a JSON object
+    return [sys.executable, "-m", "celery", *quiet, "-A", "worker.celery_app", "worker", "--loglevel", "INFO",
             "-c", str(concurrency), "-Q", queues, "--max-tasks-per-child", "500",
             "--max-memory-per-child", "2000000", "-n", f"stifflane-{os.getpid()}@%h"]
 

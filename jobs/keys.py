@@ -19,6 +19,8 @@
 | {p}:batches:owner:{o}        | zset   | one owner's batch ids                   | pruned lazily  |
 | {p}:batches:active           | zset   | batch ids not yet settled (reconciler)  | none           |
 | {p}:batches:active_owners    | hash   | owner -> number of unsettled batches    | none           |
+| {p}:metrics:counts           | hash   | counters: jobs finished by state/outcome, batch members by outcome (jobs/metrics.py) | none: bounded (fixed vocabularies) |
+| {p}:metrics:hist:{name}      | hash   | one histogram: a count per fixed bucket, sum, count | none: bounded (fixed buckets) |
 
 Job ids sort by creation time (hex microseconds first), so the indexes are
 lexicographic sorted sets with score 0 and pagination is ZRANGEBYLEX.
@@ -123,3 +125,10 @@ class Keys:
 
     def batches_active_owners(self) -> str:
         return f"{self.prefix}:batches:active_owners"
+
+    # ---- operations metrics (jobs/metrics.py): bounded hashes, never per job
+    def metrics_counts(self) -> str:
+        return f"{self.prefix}:metrics:counts"
+
+    def metrics_histogram(self, name: str) -> str:
+        return f"{self.prefix}:metrics:hist:{name}"

@@ -40,6 +40,7 @@ class Settings:
     batch_chunks_in_flight: int = 8      # published, unfinished chunks per owner (shared by its batches)
     max_batch_trajectory_values: int = 5_000_000
     batch_stale_seconds: int = 60        # a published chunk unclaimed this long is published again
+    metrics_access: str = "admin"        # /metrics: "admin" (an admin key), "public" (no key), "off" (404)
 
     @classmethod
     def from_env(cls) -> "Settings":

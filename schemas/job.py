@@ -34,12 +34,16 @@ class FiniteFloat(fields.Float):
 
 
 class StrictInteger(fields.Integer):
+    """An integer; a JSON number with no fractional part (``5.0``) is one too, as in JSON Schema."""
+
     def __init__(self, **kwargs):
         super().__init__(strict=True, **kwargs)
 
     def _deserialize(self, value, attr, data, **kwargs):
         if isinstance(value, bool):
             raise ValidationError("must be an integer")
+        if isinstance(value, float) and value.is_integer() and abs(value) < 2 ** 63:
+            value = int(value)
         return super()._deserialize(value, attr, data, **kwargs)
 
 

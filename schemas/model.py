@@ -11,8 +11,9 @@ from __future__ import annotations
 
 from marshmallow import ValidationError, fields
 
-from engine.language.limits import Limits
 from engine.language.check import ModelIssue, check_model
+from engine.language.expr import ExprError
+from engine.language.limits import Limits
 
 SCHEMA_KEY = "_schema"
 
@@ -50,7 +51,10 @@ class ModelField(fields.Field):
     def _deserialize(self, value, attr, data, **kwargs):
         if not isinstance(value, dict):
             raise ValidationError("must be an object with 'states' and 'ddt' and/or 'reactions'")
-        issues = check_model(value, self.limits)
+        try:
+            issues = check_model(value, self.limits)
+        except ExprError as e:  # a reader path that let one escape: still a problem of the model
+            raise ValidationError({SCHEMA_KEY: [f"the model cannot be prepared: {e.message}"]})
         if issues:
             raise ValidationError(issues_to_messages(issues))
         return value

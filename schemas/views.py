@@ -67,3 +67,82 @@ class HealthSchema(Schema):
     workers = fields.List(fields.Dict())
     queues = fields.Dict(keys=fields.String(), values=fields.Integer())
     detail = fields.String()
+
+
+class SpecCheckSchema(Schema):
+    """The answer of /v1/spec-checks for a valid spec."""
+
+    valid = fields.Boolean(required=True)
+    model = fields.Dict(required=True, metadata={
+        "description": "facts about the prepared model: names, counts, stoichiometry, conservation laws"})
+
+
+# ---- batches (docs/batches.md). Shapes of the replies only; nothing loads with these.
+
+class BatchLinksSchema(Schema):
+    self = fields.String()
+    table = fields.String()
+    statistics = fields.String()
+    spec = fields.String()
+    cancel = fields.String()
+
+
+class BatchProgressSchema(Schema):
+    total = fields.Integer(required=True)
+    succeeded = fields.Integer(required=True)
+    failed = fields.Integer(required=True)
+    cancelled = fields.Integer(required=True)
+    lost = fields.Integer(required=True)
+    remaining = fields.Integer(required=True)
+    fraction = fields.Float(required=True, metadata={"description": "finished members / total, 0..1"})
+    members_per_second = fields.Float(allow_none=True, required=True)
+    eta_seconds = fields.Float(allow_none=True, required=True)
+
+
+class BatchViewSchema(Schema):
+    id = fields.String(required=True)
+    state = fields.String(required=True, metadata={"description": STATE_DESCRIPTION})
+    title = fields.String()
+    created_at = fields.String(allow_none=True, metadata={"description": "RFC 3339 UTC"})
+    started_at = fields.String(allow_none=True)
+    finished_at = fields.String(allow_none=True)
+    cancel_requested = fields.Boolean()
+    chunk_size = fields.Integer()
+    chunks = fields.Integer()
+    progress = fields.Nested(BatchProgressSchema, required=True)
+    columns = fields.Dict(metadata={"description": "column names: values (the varied inputs), summaries"})
+    links = fields.Nested(BatchLinksSchema)
+
+
+class BatchPageSchema(Schema):
+    items = fields.List(fields.Nested(BatchViewSchema), required=True)
+    next_cursor = fields.String(allow_none=True, required=True)
+
+
+class BatchCreatedSchema(Schema):
+    id = fields.String(required=True)
+    state = fields.String(required=True)
+    members = fields.Integer(required=True)
+    links = fields.Nested(BatchLinksSchema)
+
+
+class BatchTableSchema(Schema):
+    id = fields.String(required=True)
+    state = fields.String(required=True)
+    complete = fields.Boolean(required=True, metadata={"description": "false while members still run"})
+    rows = fields.Integer(required=True)
+    total = fields.Integer(required=True)
+    columns = fields.Dict(required=True, metadata={
+        "description": "columnar: index, values {name: [...]}, summaries {name: [...]} (null where "
+                       "undefined or the member failed), outcome, message"})
+    caution = fields.String()
+
+
+class BatchStatisticsSchema(Schema):
+    id = fields.String(required=True)
+    state = fields.String(required=True)
+    complete = fields.Boolean(required=True)
+    rows = fields.Integer(required=True)
+    outcomes = fields.Dict(keys=fields.String(), values=fields.Integer(), required=True)
+    summaries = fields.Dict(keys=fields.String(), values=fields.Dict(), required=True, metadata={
+        "description": "per summary: count, mean, std, min, max, q05, q50, q95 (null without data)"})

@@ -44,5 +44,10 @@ def create_app(settings: Optional[Settings] = None, store: Optional[JobStore] = 
     from service import batches_api  # batch sweeps (docs/batches.md)
 
     app.register_blueprint(batches_api.bp)
+    from service import metrics, openapi_doc  # /metrics; query parameters the document does not list are refused
+
+    app.register_blueprint(metrics.bp)
+
+    openapi_doc.install(app)
     logging.basicConfig(level=logging.INFO, format="%(asctime)s %(name)s %(levelname)s %(message)s")
     return app

@@ -86,6 +86,25 @@ def _design_json(design: dict) -> dict:
 
 @bp.post("/batches")
 def create_batch():
+    """Submit a batch: a base job and its variations.
+    ---
+    post:
+      summary: Submit a batch
+      operationId: createBatch
+      parameters: [IdempotencyKey]
+      requestBody:
+        required: true
+        content: {application/json: {schema: BatchSpec}}
+      responses:
+        202:
+          description: accepted; poll the Location
+          headers: {Location: Location, Retry-After: RetryAfter}
+          content: {application/json: {schema: BatchCreated}}
+        409: Conflict
+        413: PayloadTooLarge
+        415: UnsupportedMediaType
+        422: UnprocessableContent
+    """
     body = read_json_object()
     return idempotent(lambda: _create(body))
 
@@ -111,6 +130,17 @@ def _create(body: dict):
 
 @bp.get("/batches")
 def list_batches():
+    """List your batches, newest first.
+    ---
+    get:
+      summary: List your batches, newest first
+      operationId: listBatches
+      parameters: [Limit, Cursor]
+      responses:
+        200:
+          description: a page of batches; Link rel=next when there is another
+          content: {application/json: {schema: BatchPage}}
+    """
     limit, cursor = page_args()
     records, next_cursor = _store().list(current_owner(), limit, cursor)
     headers = next_link("batches.list_batches", limit, next_cursor)
@@ -119,12 +149,36 @@ def list_batches():
 
 @bp.get("/batches/<batch_id>")
 def get_batch(batch_id: str):
+    """Read a batch: state and progress (counts, rate, time left).
+    ---
+    get:
+      summary: Read a batch
+      operationId: getBatch
+      parameters: [BatchId]
+      responses:
+        200:
+          description: the batch
+          content: {application/json: {schema: BatchView}}
+        404: NotFound
+    """
     rec = _find(batch_id)
     return _json(_view(rec), 200, {"Cache-Control": "no-cache"})
 
 
 @bp.get("/batches/<batch_id>/spec")
 def get_spec(batch_id: str):
+    """The batch spec as stored (defaults filled in).
+    ---
+    get:
+      summary: The batch spec as stored
+      operationId: getBatchSpec
+      parameters: [BatchId]
+      responses:
+        200:
+          description: the spec
+          content: {application/json: {schema: BatchSpec}}
+        404: NotFound
+    """
     _find(batch_id)
     return _json(_store().spec(batch_id))
 
@@ -141,7 +195,22 @@ def _format() -> str:
 
 @bp.get("/batches/<batch_id>/table")
 def get_table(batch_id: str):
-    """Rows of every finished member; while the batch runs, a partial table (``complete`` false)."""
+    """Rows of every finished member; while the batch runs, a partial table (``complete`` false).
+    ---
+    get:
+      summary: The summary table (partial while running)
+      operationId: getBatchTable
+      parameters: [BatchId, Format]
+      responses:
+        200:
+          description: one row per finished member
+          content:
+            application/json: {schema: BatchTable}
+            text/csv: {schema: {type: string}}
+            application/x-npz: {schema: {type: string, format: binary}}
+        404: NotFound
+        406: NotAcceptable
+    """
     rec = _find(batch_id)
     fmt = _format()
     table = tables.assemble(_store(), rec)
@@ -164,7 +233,18 @@ def get_table(batch_id: str):
 
 @bp.get("/batches/<batch_id>/statistics")
 def get_statistics(batch_id: str):
-    """Mean, standard deviation, min, max and 5/50/95 % quantiles of each summary."""
+    """Mean, standard deviation, min, max and 5/50/95 % quantiles of each summary.
+    ---
+    get:
+      summary: Statistics of each summary over the members that succeeded
+      operationId: getBatchStatistics
+      parameters: [BatchId]
+      responses:
+        200:
+          description: statistics
+          content: {application/json: {schema: BatchStatistics}}
+        404: NotFound
+    """
     rec = _find(batch_id)
     table = tables.assemble(_store(), rec)
     return _json({"id": rec.id, "state": rec.state, "complete": rec.state not in ("queued", "running"),
@@ -174,6 +254,19 @@ def get_statistics(batch_id: str):
 
 @bp.post("/batches/<batch_id>/cancel")
 def cancel_batch(batch_id: str):
+    """Cancel a batch: waiting chunks never start, running ones stop at the next member.
+    ---
+    post:
+      summary: Cancel a batch
+      operationId: cancelBatch
+      parameters: [BatchId]
+      responses:
+        202:
+          description: cancellation recorded
+          content: {application/json: {schema: BatchView}}
+        404: NotFound
+        409: Conflict
+    """
     _find(batch_id)
     outcome = _store().cancel(batch_id)
     rec = _find(batch_id)

@@ -2,12 +2,10 @@
 from __future__ import annotations
 
 import time
-from functools import lru_cache
 
 from flask import Blueprint, Response, current_app, json
 from redis.exceptions import RedisError
 
-from schemas.openapi import build_openapi
 from schemas.views import HealthSchema
 
 bp = Blueprint("health", __name__, url_prefix="/v1")
@@ -16,6 +14,21 @@ STALL_SECONDS = 120
 
 @bp.get("/health")
 def health():
+    """Redis, workers and queue depths.
+    ---
+    get:
+      summary: Redis, workers and queue depths
+      operationId: health
+      security: []
+      responses:
+        200:
+          description: healthy
+          content: {application/json: {schema: Health}}
+        503:
+          description: degraded (Redis unreachable)
+          headers: {Retry-After: RetryAfter}
+          content: {application/json: {schema: Health}}
+    """
     ctx = current_app.extensions["stifflane"]
     body = {"status": "ok", "redis": {}, "workers": [], "queues": {}}
     status = 200
@@ -48,13 +61,19 @@ def health():
     return resp
 
 
-@lru_cache(maxsize=1)
-def _openapi_text() -> str:
-    from service.app import VERSION
-
-    return json.dumps(build_openapi(VERSION))
-
-
 @bp.get("/openapi.json")
 def openapi():
-    return Response(_openapi_text(), mimetype="application/json")
+    """This document (service/openapi_doc.py generates it from the views).
+    ---
+    get:
+      summary: The OpenAPI document
+      operationId: openapi
+      security: []
+      responses:
+        200:
+          description: OpenAPI 3.1
+          content: {application/json: {schema: {type: object}}}
+    """
+    from service.openapi_doc import document_text
+
+    return Response(document_text(current_app), mimetype="application/json")

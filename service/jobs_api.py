@@ -65,6 +65,25 @@ def _find(job_id: str) -> JobRecord:
 
 @bp.post("/jobs")
 def create_job():
+    """Create an integration job.
+    ---
+    post:
+      summary: Create an integration job
+      operationId: createJob
+      parameters: [IdempotencyKey]
+      requestBody:
+        required: true
+        content: {application/json: {schema: JobSpec}}
+      responses:
+        202:
+          description: accepted; poll the Location
+          headers: {Location: Location, Retry-After: RetryAfter, ETag: ETag}
+          content: {application/json: {schema: Created}}
+        409: Conflict
+        413: PayloadTooLarge
+        415: UnsupportedMediaType
+        422: UnprocessableContent
+    """
     body = read_json_object()
     return idempotent(lambda: _create(body))
 
@@ -95,7 +114,22 @@ def _check_output_cap(spec: dict, cap: int) -> None:
 
 @bp.post("/spec-checks")
 def check_spec():
-    """Validate a job spec without submitting it (the submit page checks as you type)."""
+    """Validate a job spec without submitting it (the submit page checks as you type).
+    ---
+    post:
+      summary: Validate a job spec without submitting it
+      operationId: checkSpec
+      requestBody:
+        required: true
+        content: {application/json: {schema: JobSpec}}
+      responses:
+        200:
+          description: valid; facts about the model
+          content: {application/json: {schema: SpecCheck}}
+        413: PayloadTooLarge
+        415: UnsupportedMediaType
+        422: UnprocessableContent
+    """
     spec = JobSpecSchema().load(read_json_object())
     _check_output_cap(spec, _ctx().settings.max_output_points)
     return _json({"valid": True, "model": describe_model(spec["model"])})
@@ -103,6 +137,20 @@ def check_spec():
 
 @bp.get("/jobs")
 def list_jobs():
+    """List your jobs, newest first.
+    ---
+    get:
+      summary: List your jobs, newest first
+      operationId: listJobs
+      parameters:
+        - {name: state, in: query, schema: {type: string, enum: [queued, running, succeeded, failed, cancelled]}}
+        - Limit
+        - Cursor
+      responses:
+        200:
+          description: a page of jobs; Link rel=next when there is another
+          content: {application/json: {schema: JobPage}}
+    """
     state = request.args.get("state")
     if state is not None and state not in STATES:
         raise ApiProblem(400, "Bad Request", f"state must be one of {', '.join(STATES)}",
@@ -116,6 +164,22 @@ def list_jobs():
 
 @bp.get("/jobs/<job_id>")
 def get_job(job_id: str):
+    """Read a job: state, progress, times, digest when done.
+    ---
+    get:
+      summary: Read a job
+      operationId: getJob
+      parameters:
+        - JobId
+        - {name: If-None-Match, in: header, description: ETag of an earlier reply, schema: {type: string}}
+      responses:
+        200:
+          description: the job
+          headers: {ETag: ETag}
+          content: {application/json: {schema: JobView}}
+        304: {description: unchanged since the ETag given in If-None-Match}
+        404: NotFound
+    """
     store = _ctx().store
     inm = request.headers.get("If-None-Match")
     if inm and is_job_id(job_id):
@@ -130,12 +194,41 @@ def get_job(job_id: str):
 
 @bp.get("/jobs/<job_id>/spec")
 def get_spec(job_id: str):
+    """The job spec as stored (defaults filled in).
+    ---
+    get:
+      summary: The job spec as stored
+      operationId: getSpec
+      parameters: [JobId]
+      responses:
+        200:
+          description: the spec
+          content: {application/json: {schema: JobSpec}}
+        404: NotFound
+    """
     _find(job_id)
     return _json(_ctx().store.spec(job_id))
 
 
 @bp.get("/jobs/<job_id>/result")
 def get_result(job_id: str):
+    """A succeeded job's result as JSON, CSV or NumPy .npz.
+    ---
+    get:
+      summary: Read a succeeded job's result
+      operationId: getResult
+      parameters: [JobId, Format]
+      responses:
+        200:
+          description: the result
+          content:
+            application/json: {schema: Result}
+            text/csv: {schema: {type: string}}
+            application/x-npz: {schema: {type: string, format: binary}}
+        404: NotFound
+        406: NotAcceptable
+        409: Conflict
+    """
     rec = _find(job_id)
     fmt = results.negotiate(request.args.get("format"), request.accept_mimetypes)
     if fmt is None:
@@ -160,6 +253,20 @@ def get_result(job_id: str):
 
 @bp.post("/jobs/<job_id>/cancel")
 def cancel_job(job_id: str):
+    """Cancel a job: a queued job never starts, a running one stops at its next check.
+    ---
+    post:
+      summary: Cancel a job
+      operationId: cancelJob
+      parameters: [JobId]
+      responses:
+        202:
+          description: cancellation recorded
+          headers: {ETag: ETag}
+          content: {application/json: {schema: JobView}}
+        404: NotFound
+        409: Conflict
+    """
     _find(job_id)
     outcome = _ctx().store.cancel(job_id)
     rec = _find(job_id)

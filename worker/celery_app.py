@@ -19,6 +19,7 @@ from jobs.keys import is_job_id
 from jobs.queue import BATCH_TASK, SOLVE_TASK, make_celery
 from jobs.settings import Settings
 from jobs.store import JobStore
+from worker import logs as _json_logs  # noqa: F401  (STIFFLANE_LOG_FORMAT=json: JSON lines with job ids)
 from worker.reconciler import Periodic, beat, reconcile_jobs
 
 log = logging.getLogger(__name__)

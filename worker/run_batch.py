@@ -22,6 +22,7 @@ from sweeps import sampling, summaries
 from engine.integrate import CANCELLED, SUCCEEDED, SolverOptions, integrate
 from engine.model import PreparedModel, prepare
 from jobs import blob as result_blob
+from jobs import metrics
 from jobs.batch_store import BatchStore
 from schemas.batch import BatchSpecSchema
 from schemas.job import output_times
@@ -188,6 +189,8 @@ def run_chunk(store: BatchStore, publish: Callable[[str, int], None], batch_id: 
         log.warning("batch %s chunk %d attempt %d was fenced out; result dropped", batch_id, chunk, attempt)
         return "fenced"
     written = store.finish_chunk(batch_id, chunk, attempt, result.counts(), encode_chunk(start, result))
+    if written:  # operations metrics (jobs/metrics.py)
+        metrics.chunk_finished(store.r, store.keys, result.outcomes)
     _publish_next(store, publish, batch_id)
     return {0: "fenced", 1: "done", 2: "settled"}[written]
 

@@ -17,6 +17,7 @@ from engine.kernels import native
 from engine.integrate import CANCELLED, SUCCEEDED, integrate
 from engine.model import ModelError, prepare
 from jobs import blob as result_blob
+from jobs import metrics
 from jobs.store import JobStore
 from schemas.job import JobSpecSchema, output_times
 from worker.bounds import PreparationLimit, bounded
@@ -82,6 +83,8 @@ def run_job(store: JobStore, job_id: str) -> str:
         log.warning("job %s attempt %s was fenced out; result dropped", job_id, attempt)
         return "fenced"
     written = store.finish(job_id, attempt, state, outcome, message, summary, blob)
+    if written:  # operations metrics (jobs/metrics.py)
+        metrics.job_finished(store.r, store.keys, job_id)
     return state if written else "fenced"
 
 

@@ -299,7 +299,11 @@ def _arrhenius_k(r, spec_a, path):
         return None
     if A is None or T is None or n is None or ea is None:
         return None
-    return arrhenius(b, A, n, ea * EA_UNITS[unit], T)
+    try:
+        return arrhenius(b, A, n, ea * EA_UNITS[unit], T)
+    except ExprError as err:  # e.g. a numeric T whose T^n or exp(-Ea/RT) overflows
+        r.issue(path, f"the rate constant {err.message}", None, err.suggestion)
+        return None
 
 
 def _one_reaction(r, j, item):
