@@ -22,7 +22,7 @@ from apispec.ext.marshmallow import MarshmallowPlugin
 from marshmallow import validate
 
 from schemas.batch import BatchSpecSchema, DistributionSchema, SummarySchema
-from schemas.job import JobSpecSchema
+from schemas.job import MIN_ATOL, JobSpecSchema
 from schemas.problem import PROBLEM_MEDIA_TYPE, ProblemSchema
 from schemas.views import (BatchCreatedSchema, BatchPageSchema, BatchStatisticsSchema, BatchTableSchema,
                            BatchViewSchema, CreatedSchema, HealthSchema, JobPageSchema, JobViewSchema,
@@ -149,9 +149,9 @@ REFINEMENTS: dict[str, dict] = {
     "Output": {"oneOf": _ONE_OF_REQUIRED("times", "count")},
     "Tolerance": {"properties": {"atol": {
         "description": "absolute tolerance: a positive number, or {state: number, \"*\": default}",
-        "anyOf": [{"type": "number", "exclusiveMinimum": 0},
+        "anyOf": [{"type": "number", "minimum": MIN_ATOL},
                   {"type": "object", "propertyNames": {"anyOf": [_NAME, {"const": "*"}]},
-                   "additionalProperties": {"type": "number", "exclusiveMinimum": 0}}]}}},
+                   "additionalProperties": {"type": "number", "minimum": MIN_ATOL}}]}}},
     "BatchSpec": {"oneOf": _ONE_OF_REQUIRED("members", "grid", "sample")},
     "Member": {"properties": _BY_TARGET({"type": "number"})},
     "Grid": {"properties": _BY_TARGET(_AXIS)},
@@ -174,9 +174,11 @@ SEMANTIC_RULES: tuple[tuple[str, str], ...] = (
     (r"^/(base/)?model/events/\d+/when$", r""),
     (r"^/(base/)?model/events/\d+/name$", r"used twice"),
     (r"^/(base/)?model/(states|parameters|derived)/[^/]+$", r"already defined"),
-    (r"^/(base/)?model$", r"cannot be prepared: constant"),  # a constant (say T**n) overflows
+    (r"^/(base/)?model$", r"cannot be prepared: constant|non-zero entries|instructions|stoichiometric"),
+    (r"^/(base/)?model/reactions/\d+/arrhenius$", r"rate constant"),  # T**n or exp overflows
+    (r"^/(base/)?model/reactions$", r"stoichiometric entries"),
     # relations between fields
-    (r"^/(base/)?span$", r"t_end must be greater"),
+    (r"^/(base/)?span$", r"t_end must be greater|overflows float64"),
     (r"^/(base/)?output/times$", r"increasing|span"),
     (r"^/(base/)?output/first$", r"span"),
     (r"^/(base/)?(initial|parameters)/[^/]+$", r"is not a (state|parameter)"),

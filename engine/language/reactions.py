@@ -302,7 +302,8 @@ def _arrhenius_k(r, spec_a, path):
     try:
         return arrhenius(b, A, n, ea * EA_UNITS[unit], T)
     except ExprError as err:  # e.g. a numeric T whose T^n or exp(-Ea/RT) overflows
-        r.issue(path, f"the rate constant {err.message}", None, err.suggestion)
+        r.issue(path, "the rate constant A*T^n*exp(-Ea/(R*T)) is not a finite float64 number for "
+                      f"these values ({err.message})", None, err.suggestion)
         return None
 
 

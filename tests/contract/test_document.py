@@ -147,7 +147,7 @@ def test_a_model_whose_constant_overflows_is_a_422_not_a_500(client):
              "reactions": [{"equation": "a -> b", "arrhenius": {"A": 1.0, "n": 194.0, "T": 1e50}}]}
     r = client.post("/v1/spec-checks", json=dict(DECAY, model=model))
     assert r.status_code == 422, r.get_data(as_text=True)
-    assert r.get_json()["errors"][0]["pointer"] == "/model"
+    assert r.get_json()["errors"][0]["pointer"] == "/model/reactions/0/arrhenius"
 
 
 def test_the_engine_reader_reports_an_overflowing_arrhenius_law_as_an_issue():

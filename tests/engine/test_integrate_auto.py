@@ -108,7 +108,7 @@ def test_switch_log_rows_carry_the_numbers():
     r = sol.report
     assert r["switch_count"] >= 2  # relaxation oscillation: stiff and non-stiff phases
     for row in r["switches"]:
-        assert set(row) == {"t", "from", "to", "h", "rho", "explicit_step", "reason"}
+        assert set(row) == {"t", "from", "to", "h", "rho", "explicit_step", "reason", "explanation"}
         assert row["rho"] > 0 and row["h"] > 0
     back = [w for w in r["switches"] if w["to"] == "dormand_prince_54"]
     assert back and all(w["reason"] == "explicit_step_competitive" for w in back)
