@@ -19,48 +19,13 @@ from jobs.keys import is_job_id
 from jobs.queue import BATCH_TASK, SOLVE_TASK, make_celery
 from jobs.settings import Settings
 from jobs.store import JobStore
-from worker.reconciler import Periodic, beat, reconcile_jobs
+from worker.broker import contain_closed_channel_fault
+from worker.reconciler import Periodic, beat, clear_unacked, reconcile_jobs
 
 log = logging.getLogger(__name__)
 
 
-def contain_closed_channel_fault() -> bool:
-    """Turn kombu's crash on a channel closed after its connection into a connection error.
-
-    When Redis dies while a task is unacknowledged, Celery's consumer collects the broken
-    connection: closing one channel fails (Redis is gone), so the channel holding the
-    unacknowledged message stays open while the transport drops its ``client``. The
-    consumer's second close then tries to restore the message ("Restoring 1
-    unacknowledged message(s)"), builds a new Redis pool from ``transport.client``, which
-    is None, and raises ``AttributeError: 'NoneType' object has no attribute 'hostname'``
-    (kombu.transport.redis.Channel._connparams). Celery ignores only connection errors
-    there, so the worker stopped for good ("Unrecoverable error"). A restore cannot reach
-    a dead broker anyway: we raise the connection error kombu expects, the consumer
-    reconnects, and the message stays in the broker's unacknowledged set, which the
-    reconciler clears (worker/reconciler.py), while the job record, the truth, is
-    requeued by its lease. Returns True when the guard is in place.
-    """
-    import redis as redis_lib
-    from kombu.transport import redis as kombu_redis
-
-    original = getattr(kombu_redis.Channel, "_connparams", None)
-    if original is None:  # a kombu without this path: nothing to contain
-        return False
-    if getattr(original, "_stifflane_guard", False):
-        return True
-
-    def _connparams(self, *args, **kwargs):
-        transport = self.connection
-        if transport is None or getattr(transport, "client", None) is None:
-            raise redis_lib.ConnectionError("the broker connection of this channel is already closed")
-        return original(self, *args, **kwargs)
-
-    _connparams._stifflane_guard = True
-    kombu_redis.Channel._connparams = _connparams
-    return True
-
-
-contain_closed_channel_fault()
+contain_closed_channel_fault()  # before any broker connection exists
 settings = Settings.from_env()
 app = make_celery(settings, "stifflane-worker")
 _clients: dict[str, object] = {}  # per process, created after fork
@@ -135,7 +100,8 @@ def _start_housekeeping(sender=None, **_):
             "concurrency": getattr(sender, "concurrency", None)}
     _housekeeping = Periodic([partial(beat, store(), info),
                               partial(reconcile_jobs, store(), publish_job),
-                              partial(reconcile_batches, batch_store(), publish_chunk)])
+                              partial(reconcile_batches, batch_store(), publish_chunk),
+                              partial(clear_unacked, store(), batch_store())])
     _housekeeping.start()
 
 
