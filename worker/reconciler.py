@@ -90,18 +90,19 @@ def clear_unacked(store: JobStore, batches: BatchStore, limit: int = UNACKED_PER
     """
     s = store.settings
     ours = {s.interactive_queue, s.batch_queue}
-    entries = []  # (tag, ('job', id) | ('chunk', (batch, i)))
+    found = {}  # tag -> ('job', id) | ('chunk', (batch, i)); HSCAN may repeat a field
     for tag, raw in store.r.hscan_iter(messages.UNACKED, count=500):
         parsed = messages.unacked_entry(raw)
         if parsed is not None and parsed[1] in ours:
             job_id = messages.job_id_of(parsed[0])
             chunk = None if job_id else messages.chunk_of(parsed[0])
             if job_id or chunk:
-                entries.append((tag, ("job", job_id) if job_id else ("chunk", chunk)))
-        if len(entries) >= limit:
+                found[tag] = ("job", job_id) if job_id else ("chunk", chunk)
+        if len(found) >= limit:
             break
-    if not entries:
+    if not found:
         return 0
+    entries = list(found.items())
     pipe = store.r.pipeline(transaction=False)
     for tag, (kind, what) in entries:
         pipe.zscore(messages.UNACKED_INDEX, tag)
