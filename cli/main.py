@@ -72,7 +72,8 @@ def worker_command(concurrency: int, queues: str | None = None) -> list[str]:
     quiet = ["--quiet"] if log_format() == "json" else []  # no banner: every line is a JSON object
     return [sys.executable, "-m", "celery", *quiet, "-A", "worker.celery_app", "worker", "--loglevel", "INFO",
             "-c", str(concurrency), "-Q", queues, "--max-tasks-per-child", "500",
-            "--max-memory-per-child", "2000000", "-n", f"stifflane-{os.getpid()}@%h"]
+            "--max-memory-per-child", "2000000", "-n", f"stifflane-{os.getpid()}@%h",
+            "--without-gossip", "--without-mingle"]  # cluster chatter we never use
 
 
 def check_redis(redis_url: str | None = None) -> None:
@@ -132,7 +133,9 @@ def cmd_worker(args) -> int:
     env = _env()
     check_redis()
     subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True)
-    os.execvpe(sys.executable, worker_command(args.concurrency), env)
+    from cli import supervise  # restarts the worker with backoff whenever it exits
+
+    os.execvpe(sys.executable, supervise.command(worker_command(args.concurrency)), env)
 
 
 def _wait_http(url: str, seconds: float) -> bool:
@@ -213,7 +216,10 @@ def cmd_up(args) -> int:
         check_redis(redis_url)
         print(f"redis: {redis_url.split('@')[-1]} (password in var/redis/password)")
         subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True, cwd=ROOT)
-        procs.append(("worker", subprocess.Popen(worker_command(args.concurrency), env=env, cwd=ROOT)))
+        from cli import supervise  # restarts the worker with backoff whenever it exits
+
+        procs.append(("worker", subprocess.Popen(supervise.command(worker_command(args.concurrency)),
+                                                 env=env, cwd=ROOT)))
         procs.append(("api", subprocess.Popen(api_command("127.0.0.1", args.port), env=env, cwd=ROOT)))
         base = f"http://127.0.0.1:{args.port}"
         if not _wait_http(base + "/v1/health", 30):

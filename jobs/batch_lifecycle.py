@@ -21,10 +21,17 @@ not batches, share the queue in turns.
 
 KEYS for every script: batch hash, chunk hash, lease zset, active-batches zset,
 active-owners hash, then extras.
+
+Time comes from Redis (``TIME``) inside every script, as for jobs: chunk leases and
+republication times are on one clock, whatever the clocks of the workers' hosts.
 """
 
 # Shared Lua helpers.
 _COMMON = """
+local function redis_now()
+  local t = redis.call('TIME')
+  return tonumber(t[1]) + tonumber(t[2]) / 1000000
+end
 local function size(i)
   local cs = tonumber(redis.call('HGET', KEYS[1], 'chunk_size'))
   local total = tonumber(redis.call('HGET', KEYS[1], 'total'))
@@ -56,10 +63,10 @@ local function settle(id, now, ttl)
 end
 """
 
-# ARGV: id, chunk, now, lease_seconds, max_attempts, ttl
+# ARGV: id, chunk, lease_seconds, max_attempts, ttl
 # Returns {status, attempt}: claimed | running | done | cancelled | exhausted | missing.
 CLAIM = _COMMON + """
-local id, i, now = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3])
+local id, i, now = ARGV[1], tonumber(ARGV[2]), redis_now()
 local state = redis.call('HGET', KEYS[1], 'state')
 if not state then return {'missing', 0} end
 local cs = redis.call('HGET', KEYS[2], 's' .. i)
@@ -71,50 +78,51 @@ end
 redis.call('HINCRBY', KEYS[1], 'rev', 1)
 if redis.call('HGET', KEYS[1], 'cancel') == '1' then
   close_chunk(i, 'c', 'cancelled', size(i), true)
-  settle(id, now, tonumber(ARGV[6]))
+  settle(id, now, tonumber(ARGV[5]))
   return {'cancelled', 0}
 end
 local attempt = redis.call('HINCRBY', KEYS[2], 'a' .. i, 1)
-if attempt > tonumber(ARGV[5]) then
+if attempt > tonumber(ARGV[4]) then
   close_chunk(i, 'x', 'lost', size(i), true)
-  settle(id, now, tonumber(ARGV[6]))
+  settle(id, now, tonumber(ARGV[5]))
   return {'exhausted', attempt}
 end
 redis.call('HSET', KEYS[2], 's' .. i, 'r')
 redis.call('ZREM', KEYS[3], 'w' .. i)
-redis.call('ZADD', KEYS[3], now + tonumber(ARGV[4]), tostring(i))
+redis.call('ZADD', KEYS[3], now + tonumber(ARGV[3]), tostring(i))
 if state == 'queued' then redis.call('HSET', KEYS[1], 'state', 'running', 'started', now) end
 return {'claimed', attempt}
 """
 
-# ARGV: chunk, attempt, now, lease_seconds. Returns -1 when fenced out, else the cancel flag.
-HEARTBEAT = """
+# ARGV: chunk, attempt, lease_seconds. Returns -1 when fenced out, else the cancel flag.
+HEARTBEAT = _COMMON + """
 local i = ARGV[1]
 if redis.call('HGET', KEYS[2], 's' .. i) ~= 'r' then return -1 end
 if redis.call('HGET', KEYS[2], 'a' .. i) ~= ARGV[2] then return -1 end
-redis.call('ZADD', KEYS[3], tonumber(ARGV[3]) + tonumber(ARGV[4]), i)
+redis.call('ZADD', KEYS[3], redis_now() + tonumber(ARGV[3]), i)
 return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
 """
 
 # KEYS[6]: the chunk's result key.
-# ARGV: id, chunk, attempt, now, n_ok, n_failed, n_cancelled, ttl, blob
+# ARGV: id, chunk, attempt, n_ok, n_failed, n_cancelled, ttl, blob
 # Returns 0 when fenced out, 1 when written, 2 when written and the batch is now settled.
 FINISH = _COMMON + """
-local id, i, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[4]), tonumber(ARGV[8])
+local id, i, now, ttl = ARGV[1], tonumber(ARGV[2]), redis_now(), tonumber(ARGV[7])
 if redis.call('HGET', KEYS[2], 's' .. i) ~= 'r' then return 0 end
 if redis.call('HGET', KEYS[2], 'a' .. i) ~= ARGV[3] then return 0 end
-redis.call('SET', KEYS[6], ARGV[9], 'EX', ttl)
-close_chunk(i, 'd', 'done', tonumber(ARGV[5]), true)
-redis.call('HINCRBY', KEYS[1], 'failed', tonumber(ARGV[6]))
-redis.call('HINCRBY', KEYS[1], 'cancelled', tonumber(ARGV[7]))
+redis.call('SET', KEYS[6], ARGV[8], 'EX', ttl)
+close_chunk(i, 'd', 'done', tonumber(ARGV[4]), true)
+redis.call('HINCRBY', KEYS[1], 'failed', tonumber(ARGV[5]))
+redis.call('HINCRBY', KEYS[1], 'cancelled', tonumber(ARGV[6]))
 redis.call('HINCRBY', KEYS[1], 'writes', 1)  -- evidence for tests: one write per chunk
 redis.call('HINCRBY', KEYS[1], 'rev', 1)
 return 1 + settle(id, now, ttl)
 """
 
-# ARGV: max_inflight, now, stale_seconds. Returns the chunk indexes to publish now (the
+# ARGV: max_inflight, stale_seconds. Returns the chunk indexes to publish now (the
 # caller publishes them), keeping the owner's share of max_inflight; each gets a waiting entry 'w<i>' in the lease zset, due at now + stale.
-NEXT = """
+NEXT = _COMMON + """
+local now = redis_now()
 local state = redis.call('HGET', KEYS[1], 'state')
 if state ~= 'queued' and state ~= 'running' then return {} end
 if redis.call('HGET', KEYS[1], 'cancel') == '1' then return {} end
@@ -127,7 +135,7 @@ local window = math.max(1, math.floor(tonumber(ARGV[1]) / batches))
 local out = {}
 while inflight < window and published < n do
   table.insert(out, published)
-  redis.call('ZADD', KEYS[3], tonumber(ARGV[2]) + tonumber(ARGV[3]), 'w' .. published)
+  redis.call('ZADD', KEYS[3], now + tonumber(ARGV[2]), 'w' .. published)
   published = published + 1
   inflight = inflight + 1
 end
@@ -135,10 +143,10 @@ redis.call('HSET', KEYS[1], 'published', published, 'inflight', inflight)
 return out
 """
 
-# ARGV: id, now, ttl. Cancels every chunk that has not started; running ones stop at
+# ARGV: id, ttl. Cancels every chunk that has not started; running ones stop at
 # their next member. Returns the batch state after the call.
 CANCEL = _COMMON + """
-local id, now, ttl = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3])
+local id, now, ttl = ARGV[1], redis_now(), tonumber(ARGV[2])
 local state = redis.call('HGET', KEYS[1], 'state')
 if not state then return 'missing' end
 if state ~= 'queued' and state ~= 'running' then return state end
@@ -161,13 +169,13 @@ if settle(id, now, ttl) == 1 then return 'cancelled' end
 return 'cancelling'
 """
 
-# ARGV: id, now, ttl, stale_seconds. Running chunks whose lease expired go back to waiting,
+# ARGV: id, ttl, stale_seconds. Running chunks whose lease expired go back to waiting,
 # or to cancelled when a cancel was asked for. Waiting chunks not claimed within stale_seconds
 # of publication are published again: their message may sit unacknowledged in a dead
 # worker's prefetch until the broker's visibility timeout (a duplicate is harmless: claims
 # are fenced). Returns the chunk indexes to (re)publish.
 REQUEUE = _COMMON + """
-local id, now, ttl, stale = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3]), tonumber(ARGV[4])
+local id, now, ttl, stale = ARGV[1], redis_now(), tonumber(ARGV[2]), tonumber(ARGV[3])
 local due = redis.call('ZRANGEBYSCORE', KEYS[3], '-inf', '(' .. now)
 local out = {}
 for _, member in ipairs(due) do

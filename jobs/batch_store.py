@@ -179,14 +179,14 @@ class BatchStore:
 
     def cancel(self, batch_id: str) -> str:
         return _s(self._cancel(keys=self._k(batch_id),
-                               args=[batch_id, repr(time.time()), self.settings.result_ttl_seconds]))
+                               args=[batch_id, self.settings.result_ttl_seconds]))
 
     def next_chunks(self, batch_id: str) -> list[int]:
         """Chunk indexes to publish now: at most ``batch_chunks_in_flight`` in flight per owner,
         shared by the owner's unsettled batches."""
         s = self.settings
         return [int(i) for i in self._next(keys=self._k(batch_id), args=[
-            s.batch_chunks_in_flight, repr(time.time()), s.batch_stale_seconds])]
+            s.batch_chunks_in_flight, s.batch_stale_seconds])]
 
     def chunk_states(self, batch_id: str) -> dict[int, str]:
         """{chunk: state} for chunks that have one ('r', 'd', 'c', 'x'); absent = waiting."""
@@ -209,20 +209,20 @@ class BatchStore:
     def claim_chunk(self, batch_id: str, chunk: int) -> tuple[str, int]:
         s = self.settings
         status, attempt = self._claim(keys=self._k(batch_id), args=[
-            batch_id, chunk, repr(time.time()), s.lease_seconds, s.max_attempts, s.result_ttl_seconds])
+            batch_id, chunk, s.lease_seconds, s.max_attempts, s.result_ttl_seconds])
         return _s(status), int(attempt)
 
     def heartbeat_chunk(self, batch_id: str, chunk: int, attempt: int) -> int:
         """Extend the lease. -1: fenced out; 1: cancel requested; 0: carry on."""
         return int(self._heartbeat(keys=self._k(batch_id), args=[
-            chunk, attempt, repr(time.time()), self.settings.lease_seconds]))
+            chunk, attempt, self.settings.lease_seconds]))
 
     def finish_chunk(self, batch_id: str, chunk: int, attempt: int, counts: tuple[int, int, int],
                      blob: bytes) -> int:
         """Write the chunk's result if ``attempt`` is current. 0 fenced, 1 written, 2 batch settled."""
         ok, failed, cancelled = counts
         return int(self._finish(keys=self._k(batch_id, self.keys.batch_result(batch_id, chunk)), args=[
-            batch_id, chunk, attempt, repr(time.time()), ok, failed, cancelled,
+            batch_id, chunk, attempt, ok, failed, cancelled,
             self.settings.result_ttl_seconds, blob]))
 
     def active_ids(self) -> list[str]:
@@ -234,5 +234,4 @@ class BatchStore:
             self.r.zrem(self.keys.batches_active(), batch_id)
             return []
         return [int(i) for i in self._requeue(keys=self._k(batch_id), args=[
-            batch_id, repr(time.time()), self.settings.result_ttl_seconds,
-            self.settings.batch_stale_seconds])]
+            batch_id, self.settings.result_ttl_seconds, self.settings.batch_stale_seconds])]

@@ -12,10 +12,26 @@ the owner's five state indexes in the same order, then extras.
 Index sorted sets carry a TTL refreshed on every add (``__INDEX_TTL__``, filled in
 by the store from the result TTL), so no key the project writes lives forever
 (API keys excepted, by design).
+
+Time comes from Redis (``TIME``) inside every script: leases are written and compared
+on one clock, so workers on hosts whose clocks disagree neither requeue a live job
+nor keep a dead one. No script takes "now" as an argument.
+
+``published`` (Redis time) marks a job's latest publication (set at create, requeue
+and republication); ``gone`` marks when a sweep first saw a queued job whose message
+had left the broker's list (see STRANDED).
+"""
+
+# Shared Lua helper: the Redis server's clock, in seconds.
+_NOW = """
+local function redis_now()
+  local t = redis.call('TIME')
+  return tonumber(t[1]) + tonumber(t[2]) / 1000000
+end
 """
 
 # Shared Lua helper: move a job id between state indexes.
-_MOVE = """
+_MOVE = _NOW + """
 local ORDER = {queued=2, running=3, succeeded=4, failed=5, cancelled=6}
 local function move(id, from, to)
   redis.call('ZREM', KEYS[ORDER[from]], id)
@@ -27,9 +43,9 @@ local function move(id, from, to)
 end
 """
 
-# ARGV: id, now, lease_seconds, max_attempts
+# ARGV: id, lease_seconds, max_attempts
 CLAIM = _MOVE + """
-local id, now, lease, maxa = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3]), tonumber(ARGV[4])
+local id, lease, maxa, now = ARGV[1], tonumber(ARGV[2]), tonumber(ARGV[3]), redis_now()
 local state = redis.call('HGET', KEYS[1], 'state')
 if not state then return {'missing', 0} end
 local expired = state == 'running' and tonumber(redis.call('HGET', KEYS[1], 'lease') or '0') < now
@@ -37,54 +53,58 @@ if state ~= 'queued' and not expired then return {state, 0} end
 local attempt = redis.call('HINCRBY', KEYS[1], 'attempt', 1)
 if attempt > maxa then
   redis.call('HSET', KEYS[1], 'state', 'failed', 'outcome', 'worker_lost', 'finished', now,
-    'message', 'the worker running this job died ' .. maxa .. ' times; the job is not retried again. '
+    'message', 'this job lost its worker ' .. maxa .. ' times (the worker died, or could not reach '
+      .. 'Redis for longer than its lease); the job is not retried again. '
       .. 'Check the model for values that overflow, or lower limits.max_wall_seconds')
   redis.call('HINCRBY', KEYS[1], 'rev', 1)
   move(id, state, 'failed')
   return {'exhausted', attempt}
 end
 redis.call('HSET', KEYS[1], 'state', 'running', 'lease', now + lease, 'cancel', '0')
+redis.call('HDEL', KEYS[1], 'gone')
 if not redis.call('HGET', KEYS[1], 'started') then redis.call('HSET', KEYS[1], 'started', now) end
 redis.call('HINCRBY', KEYS[1], 'rev', 1)
 move(id, state, 'running')
 return {'claimed', attempt}
 """
 
-# ARGV: id, attempt, now, lease_seconds, progress ('' = unchanged)
+# ARGV: id, attempt, lease_seconds, progress ('' = unchanged)
 # Returns -1 when the attempt is no longer current (stop work), else the cancel flag.
-HEARTBEAT = """
+HEARTBEAT = _NOW + """
 if redis.call('HGET', KEYS[1], 'state') ~= 'running' then return -1 end
 if redis.call('HGET', KEYS[1], 'attempt') ~= ARGV[2] then return -1 end
-redis.call('HSET', KEYS[1], 'lease', tonumber(ARGV[3]) + tonumber(ARGV[4]))
-if ARGV[5] ~= '' and redis.call('HGET', KEYS[1], 'progress') ~= ARGV[5] then
-  redis.call('HSET', KEYS[1], 'progress', ARGV[5])
+redis.call('HSET', KEYS[1], 'lease', redis_now() + tonumber(ARGV[3]))
+if ARGV[4] ~= '' and redis.call('HGET', KEYS[1], 'progress') ~= ARGV[4] then
+  redis.call('HSET', KEYS[1], 'progress', ARGV[4])
   redis.call('HINCRBY', KEYS[1], 'rev', 1)
 end
 return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
 """
 
-# KEYS[12]: result key. ARGV: id, attempt, now, state, outcome, message, summary, ttl, has_result, blob
-# Returns 1 when this call wrote the terminal state, 0 when fenced out.
+# KEYS[12]: result key. ARGV: id, attempt, state, outcome, message, summary, ttl, has_result, blob
+# Returns 1 when this call wrote the terminal state, 0 when fenced out. The lease is not
+# checked: a finish that arrives late (Redis was unreachable) still counts while no other
+# attempt has taken over, which is exactly the fence.
 FINISH = _MOVE + """
-local id, attempt, now = ARGV[1], ARGV[2], ARGV[3]
+local id, attempt, now = ARGV[1], ARGV[2], redis_now()
 if redis.call('HGET', KEYS[1], 'state') ~= 'running' then return 0 end
 if redis.call('HGET', KEYS[1], 'attempt') ~= attempt then return 0 end
-local ttl = tonumber(ARGV[8])
-if ARGV[9] == '1' then redis.call('SET', KEYS[12], ARGV[10], 'EX', ttl) end
+local ttl = tonumber(ARGV[7])
+if ARGV[8] == '1' then redis.call('SET', KEYS[12], ARGV[9], 'EX', ttl) end
 redis.call('HINCRBY', KEYS[1], 'writes', 1)  -- evidence for tests: exactly one terminal write
-redis.call('HSET', KEYS[1], 'state', ARGV[4], 'outcome', ARGV[5], 'message', ARGV[6],
-  'summary', ARGV[7], 'finished', now)
-if ARGV[4] == 'succeeded' then redis.call('HSET', KEYS[1], 'progress', '1') end
+redis.call('HSET', KEYS[1], 'state', ARGV[3], 'outcome', ARGV[4], 'message', ARGV[5],
+  'summary', ARGV[6], 'finished', now)
+if ARGV[3] == 'succeeded' then redis.call('HSET', KEYS[1], 'progress', '1') end
 redis.call('HDEL', KEYS[1], 'lease')
 redis.call('HINCRBY', KEYS[1], 'rev', 1)
 redis.call('EXPIRE', KEYS[1], ttl)
-move(id, 'running', ARGV[4])
+move(id, 'running', ARGV[3])
 return 1
 """
 
-# ARGV: id, now. Returns the state after the call, or 'cancelling' for a running job.
+# ARGV: id. Returns the state after the call, or 'cancelling' for a running job.
 CANCEL = _MOVE + """
-local id, now = ARGV[1], ARGV[2]
+local id, now = ARGV[1], redis_now()
 local state = redis.call('HGET', KEYS[1], 'state')
 if not state then return 'missing' end
 if state == 'queued' then
@@ -104,10 +124,10 @@ end
 return state
 """
 
-# ARGV: id, now. A running job whose lease expired goes back to queued (returns 1),
-# or to cancelled when a cancel was requested (returns 2).
+# ARGV: id. A running job whose lease expired goes back to queued (returns 1; the caller
+# publishes it again), or to cancelled when a cancel was requested (returns 2).
 REQUEUE = _MOVE + """
-local id, now = ARGV[1], tonumber(ARGV[2])
+local id, now = ARGV[1], redis_now()
 if redis.call('HGET', KEYS[1], 'state') ~= 'running' then return 0 end
 if tonumber(redis.call('HGET', KEYS[1], 'lease') or '0') >= now then return 0 end
 redis.call('HINCRBY', KEYS[1], 'rev', 1)
@@ -118,7 +138,43 @@ if redis.call('HGET', KEYS[1], 'cancel') == '1' then
   move(id, 'running', 'cancelled')
   return 2
 end
-redis.call('HSET', KEYS[1], 'state', 'queued')
+redis.call('HSET', KEYS[1], 'state', 'queued', 'published', now)
+redis.call('HDEL', KEYS[1], 'gone')
 move(id, 'running', 'queued')
+return 1
+"""
+
+# KEYS[1]: job hash. Stamps a new job's publication time (run inside create's transaction).
+STAMP = _NOW + """
+redis.call('HSET', KEYS[1], 'published', redis_now())
+return 1
+"""
+
+# KEYS[1]: job hash. ARGV: head, grace, created.
+# ``head``: publication time of the oldest message still in the broker's list ('' when the
+# list is empty); ``created``: the job's creation time, for records without ``published``.
+# The list is first in, first out: a queued job published before the head has had its
+# message taken from the list, so a worker holds it or it was lost (prefetched by a killed
+# worker, or dropped by a broker crash). The first sweep that sees this marks ``gone``; a
+# sweep at least ``grace`` seconds later that still sees it republishes (returns 1, stamps
+# ``published``). A job whose message is still in the list (published at or after the
+# head) is never republished, however long the queue.
+STRANDED = _NOW + """
+if redis.call('HGET', KEYS[1], 'state') ~= 'queued' then return 0 end
+local now = redis_now()
+local head = tonumber(ARGV[1]) or now
+local published = tonumber(redis.call('HGET', KEYS[1], 'published') or ARGV[3])
+if published >= head then
+  redis.call('HDEL', KEYS[1], 'gone')
+  return 0
+end
+local gone = tonumber(redis.call('HGET', KEYS[1], 'gone') or '')
+if not gone then
+  redis.call('HSET', KEYS[1], 'gone', now)
+  return 0
+end
+if now - gone < tonumber(ARGV[2]) then return 0 end
+redis.call('HSET', KEYS[1], 'published', now)
+redis.call('HDEL', KEYS[1], 'gone')
 return 1
 """

@@ -20,7 +20,7 @@ class Settings:
     key_prefix: str = "sl"
     redis_timeout_seconds: float = 1.5   # a hung Redis gives a 503 within 2 s, never a hang
     result_ttl_seconds: int = 7 * 24 * 3600
-    lease_seconds: float = 10.0          # a running attempt must heartbeat within this
+    lease_seconds: float = 6.0           # a running attempt must heartbeat within this (every 1 s)
     max_attempts: int = 3                # a job that kills its worker this often is failed
     interactive_queue: str = "stifflane.jobs"
     soft_time_limit: int = 3000          # seconds; both below the visibility timeout

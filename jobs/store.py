@@ -16,6 +16,7 @@ import redis
 
 from jobs import lifecycle
 from jobs.keys import STATES, TERMINAL, Keys, created_at, new_job_id
+from jobs.messages import job_id_of
 from jobs.settings import Settings
 
 # Fields read for a job view (everything but the spec, which can be large).
@@ -89,6 +90,8 @@ class JobStore:
         self._finish = script(lifecycle.FINISH)
         self._cancel = script(lifecycle.CANCEL)
         self._requeue = script(lifecycle.REQUEUE)
+        self._stamp = script(lifecycle.STAMP)
+        self._stranded = script(lifecycle.STRANDED)
 
     @classmethod
     def connect(cls, settings: Settings, **client_options) -> "JobStore":
@@ -132,6 +135,7 @@ class JobStore:
                       self.keys.owner_state(owner, "queued")):
             pipe.zadd(index, {job_id: 0})
             pipe.expire(index, self.index_ttl)
+        self._stamp(keys=[key], client=pipe)  # publication time, on Redis's clock
         pipe.execute()
         return self.get(job_id)
 
@@ -158,7 +162,7 @@ class JobStore:
         return self.r.get(self.keys.result(job_id))
 
     def cancel(self, job_id: str) -> str:
-        return _s(self._cancel(keys=self._script_keys(job_id), args=[job_id, repr(time.time())]))
+        return _s(self._cancel(keys=self._script_keys(job_id), args=[job_id]))
 
     def list(self, owner: str, state: Optional[str], limit: int,
              after: Optional[str]) -> tuple[list[JobRecord], Optional[str]]:
@@ -217,18 +221,24 @@ class JobStore:
         return time.time() - created_at(_s(first[0])) if first else None
 
     # ---- worker side ----------------------------------------------------
+    # Leases are written and compared on Redis's clock (TIME inside the scripts), never on
+    # this host's: a worker whose clock is off neither loses a live job nor keeps a dead one.
+    def redis_time(self) -> float:
+        seconds, micros = self.r.time()
+        return seconds + micros / 1e6
+
     def claim(self, job_id: str) -> tuple[str, int]:
         """('claimed', attempt) when this caller now runs the job, else (state, 0)."""
         status, attempt = self._claim(
             keys=self._script_keys(job_id),
-            args=[job_id, repr(time.time()), self.settings.lease_seconds, self.settings.max_attempts])
+            args=[job_id, self.settings.lease_seconds, self.settings.max_attempts])
         return _s(status), int(attempt)
 
     def heartbeat(self, job_id: str, attempt: int, progress: Optional[float]) -> int:
         """Extend the lease. Returns -1 if fenced out, 1 if cancel requested, else 0."""
         return int(self._heartbeat(
             keys=[self.keys.job(job_id)],
-            args=[job_id, attempt, repr(time.time()), self.settings.lease_seconds,
+            args=[job_id, attempt, self.settings.lease_seconds,
                   "" if progress is None else f"{progress:.4f}"]))
 
     def finish(self, job_id: str, attempt: int, state: str, outcome: str, message: str,
@@ -237,7 +247,7 @@ class JobStore:
         assert state in TERMINAL
         return bool(self._finish(
             keys=self._script_keys(job_id, self.keys.result(job_id)),
-            args=[job_id, attempt, repr(time.time()), state, outcome, message,
+            args=[job_id, attempt, state, outcome, message,
                   json.dumps(summary, allow_nan=False), self.settings.result_ttl_seconds,
                   "1" if blob is not None else "0", blob if blob is not None else b""]))
 
@@ -247,39 +257,58 @@ class JobStore:
         if not ids:
             return []
         pipe = self.r.pipeline(transaction=False)
+        pipe.time()
         for i in ids:
             pipe.hget(self.keys.job(i), "lease")
-        now = time.time()
-        return [i for i, lease in zip(ids, pipe.execute()) if lease is not None and float(lease) < now]
+        (seconds, micros), *leases = pipe.execute()
+        now = seconds + micros / 1e6
+        return [i for i, lease in zip(ids, leases) if lease is not None and float(lease) < now]
 
     def requeue(self, job_id: str) -> int:
         """1: back to queued (publish it again); 2: was cancelling, now cancelled; 0: no-op."""
-        return int(self._requeue(keys=self._script_keys(job_id), args=[job_id, repr(time.time())]))
+        return int(self._requeue(keys=self._script_keys(job_id), args=[job_id]))
 
-    def stranded_queued(self, older_than: float, limit: int = 100) -> list[str]:
-        """Queued jobs while the broker's queue is empty: their message was lost.
+    def queue_head(self, look: int = 10) -> tuple[Optional[str], Optional[float]]:
+        """(job id, publication time) of the oldest message in the broker's list.
 
-        A message prefetched by a worker that was then killed stays unacknowledged until
-        the broker's visibility timeout; a publish can fail after the record was written.
-        Marks each returned job as republished now, so it is not returned again soon.
+        (None, None) when the list is empty; ('', None) when none of the ``look`` oldest
+        messages names a job (foreign or malformed messages: the caller waits for them to go).
         """
-        if self.r.llen(self.settings.interactive_queue) > 0:
+        raw = self.r.lrange(self.settings.interactive_queue, -look, -1)
+        if not raw:
+            return None, None
+        for message in reversed(raw):  # Celery pushes on the left and pops on the right
+            job_id = job_id_of(message)
+            if job_id is not None:
+                published = self.r.hget(self.keys.job(job_id), "published")
+                return job_id, float(published) if published else created_at(job_id)
+        return "", None
+
+    def stranded_queued(self, grace: float, limit: int = 500) -> list[str]:
+        """Queued jobs whose broker message is gone: republish them (each is returned once).
+
+        The broker's list is first in, first out, so a queued job published before the
+        oldest message still in the list no longer has its message there: a worker took it
+        (and claims it within milliseconds) or it was lost (prefetched by a worker that was
+        then killed, or a broker crash). A job seen so on two sweeps ``grace`` seconds apart
+        is returned and stamped as published now. This works whatever the queue's length:
+        only jobs created before the head message's job are read (a few: requeued and
+        stranded ones), at most ``limit`` per call. A publish that failed after create is
+        found once the queue has moved past where its message would have been.
+        """
+        head_id, head_published = self.queue_head()
+        if head_id == "":
             return []
-        ids = [_s(i) for i in self.r.zrangebylex(self.keys.index_state("queued"), "-", "+", start=0, num=limit)]
+        upper = f"({head_id}" if head_id else "+"
+        ids = [_s(i) for i in self.r.zrangebylex(self.keys.index_state("queued"), "-", upper,
+                                                 start=0, num=limit)]
         if not ids:
             return []
+        head = "" if head_published is None else repr(head_published)
         pipe = self.r.pipeline(transaction=False)
         for i in ids:
-            pipe.hget(self.keys.job(i), "published")
-        now = time.time()
-        stale = [i for i, p in zip(ids, pipe.execute())
-                 if now - (float(p) if p else created_at(i)) > older_than]
-        if stale:
-            pipe = self.r.pipeline(transaction=False)
-            for i in stale:
-                pipe.hset(self.keys.job(i), "published", repr(now))
-            pipe.execute()
-        return stale
+            self._stranded(keys=[self.keys.job(i)], args=[head, grace, repr(created_at(i))], client=pipe)
+        return [i for i, republish in zip(ids, pipe.execute()) if int(republish) == 1]
 
     def worker_beat(self, name: str, info: dict, ttl: int = 30) -> None:
         self.r.set(self.keys.worker(name), json.dumps(info), ex=ttl)

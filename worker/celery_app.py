@@ -20,9 +20,13 @@ from jobs.queue import BATCH_TASK, SOLVE_TASK, make_celery
 from jobs.settings import Settings
 from jobs.store import JobStore
 from worker import logs as _json_logs  # noqa: F401  (STIFFLANE_LOG_FORMAT=json: JSON lines with job ids)
-from worker.reconciler import Periodic, beat, reconcile_jobs
+from worker.broker import contain_closed_channel_fault
+from worker.reconciler import Periodic, beat, clear_unacked, reconcile_jobs
 
 log = logging.getLogger(__name__)
+
+
+contain_closed_channel_fault()  # before any broker connection exists
 settings = Settings.from_env()
 app = make_celery(settings, "stifflane-worker")
 _clients: dict[str, object] = {}  # per process, created after fork
@@ -97,7 +101,8 @@ def _start_housekeeping(sender=None, **_):
             "concurrency": getattr(sender, "concurrency", None)}
     _housekeeping = Periodic([partial(beat, store(), info),
                               partial(reconcile_jobs, store(), publish_job),
-                              partial(reconcile_batches, batch_store(), publish_chunk)])
+                              partial(reconcile_batches, batch_store(), publish_chunk),
+                              partial(clear_unacked, store(), batch_store())])
     _housekeeping.start()
 
 

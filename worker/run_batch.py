@@ -140,6 +140,7 @@ class _ChunkBeat:
 
     def __init__(self, store: BatchStore, batch_id: str, chunk: int):
         self.store, self.batch_id, self.chunk = store, batch_id, chunk
+        self.settings = store.settings
 
     def heartbeat(self, _job_id, attempt, _progress):
         return self.store.heartbeat_chunk(self.batch_id, self.chunk, attempt)
@@ -185,10 +186,14 @@ def run_chunk(store: BatchStore, publish: Callable[[str, int], None], batch_id: 
             msg = f"internal error while preparing the batch ({type(e).__name__}: {e})"
             result = ChunkResult(np.full((stop - start, 0), np.nan), [INTERNAL_ERROR] * (stop - start),
                                  {i: msg for i in range(start, stop)}, None)
-    if beat.fenced:
-        log.warning("batch %s chunk %d attempt %d was fenced out; result dropped", batch_id, chunk, attempt)
-        return "fenced"
-    written = store.finish_chunk(batch_id, chunk, attempt, result.counts(), encode_chunk(start, result))
+        if beat.fenced:
+            log.warning("batch %s chunk %d attempt %d was fenced out; result dropped", batch_id, chunk, attempt)
+            return "fenced"
+        blob = encode_chunk(start, result)
+        written = beat.write(f"finish of batch {batch_id} chunk {chunk}",
+                             lambda: store.finish_chunk(batch_id, chunk, attempt, result.counts(), blob))
+    if written is None:
+        return "lease_lost"
     if written:  # operations metrics (jobs/metrics.py)
         metrics.chunk_finished(store.r, store.keys, result.outcomes)
     _publish_next(store, publish, batch_id)
@@ -203,10 +208,14 @@ def _publish_next(store: BatchStore, publish, batch_id: str) -> None:
 def reconcile_batches(store: BatchStore, publish: Callable[[str, int], None]) -> None:
     """Republish chunks whose worker (or message) was lost; top up each batch's window of chunks.
 
-    A tick of the worker's housekeeping thread (worker/reconciler.py).
+    A tick of the worker's housekeeping thread (worker/reconciler.py); leases are not acted
+    on for one lease period after Redis restarted (``reconciler.redis_settled``).
     """
+    from worker.reconciler import redis_settled
+
+    settled = redis_settled(store)
     for batch_id in store.active_ids():
-        for chunk in store.requeue_expired(batch_id):
+        for chunk in store.requeue_expired(batch_id) if settled else ():
             log.warning("batch %s chunk %d lost its worker or its message; published again", batch_id, chunk)
             publish(batch_id, chunk)
         _publish_next(store, publish, batch_id)

@@ -31,13 +31,19 @@ DIGEST_KEYS = ("accepted_steps", "rejected_steps", "rhs_evaluations", "jacobian_
 
 
 class Heartbeat:
-    """Background lease renewal for one running attempt."""
+    """Background lease renewal for one running attempt.
+
+    ``lease_until`` is this process's estimate (monotonic clock) of when the lease runs out:
+    one lease after the last heartbeat Redis accepted (after the claim, at first).
+    """
 
     def __init__(self, store: JobStore, job_id: str, attempt: int, period: float = 1.0):
         self.store, self.job_id, self.attempt, self.period = store, job_id, attempt, period
         self.progress: float | None = 0.0
         self.cancel = False
         self.fenced = False
+        self.lease_seconds = float(store.settings.lease_seconds)
+        self.lease_until = time.monotonic() + self.lease_seconds
         self._done = threading.Event()
         self._thread = threading.Thread(target=self._run, name=f"heartbeat-{job_id}", daemon=True)
 
@@ -51,13 +57,37 @@ class Heartbeat:
 
     def _run(self):
         while not self._done.wait(self.period):
+            sent = time.monotonic()
             try:
                 flag = self.store.heartbeat(self.job_id, self.attempt, self.progress)
             except Exception as e:  # Redis blip: keep solving, the lease has slack
                 log.warning("heartbeat failed for %s: %s", self.job_id, e)
                 continue
+            if flag >= 0:
+                self.lease_until = sent + self.lease_seconds
             self.fenced = flag < 0
             self.cancel = flag == 1
+
+    def write(self, what: str, write, first_delay: float = 0.05, max_delay: float = 1.0):
+        """``write()`` (a fenced finish), retried with backoff while Redis is unreachable and
+        the lease still holds; the heartbeat keeps beating meanwhile, so the lease is renewed
+        as soon as Redis answers again. Returns what ``write`` returns, or None when the lease
+        ran out first (the reconciler then requeues the job and another attempt runs it)."""
+        from redis.exceptions import ConnectionError as RedisConnectionError
+        from redis.exceptions import TimeoutError as RedisTimeoutError
+
+        delay = first_delay
+        while True:
+            try:
+                return write()
+            except (RedisConnectionError, RedisTimeoutError) as e:
+                left = self.lease_until - time.monotonic()
+                if left <= 0:
+                    log.error("%s failed and the lease ran out (%s); the job will run again", what, e)
+                    return None
+                log.warning("%s failed (%s); retrying while the lease holds (%.1f s left)", what, e, left)
+                time.sleep(min(delay, left))
+                delay = min(2 * delay, max_delay)
 
     def monitor(self, fraction: float) -> bool:
         """The integrator's progress callback: True means stop now."""
@@ -79,10 +109,13 @@ def run_job(store: JobStore, job_id: str) -> str:
         return status
     with Heartbeat(store, job_id, attempt) as beat:
         state, outcome, message, summary, blob = _solve(store, job_id, beat)
-    if beat.fenced:
-        log.warning("job %s attempt %s was fenced out; result dropped", job_id, attempt)
-        return "fenced"
-    written = store.finish(job_id, attempt, state, outcome, message, summary, blob)
+        if beat.fenced:
+            log.warning("job %s attempt %s was fenced out; result dropped", job_id, attempt)
+            return "fenced"
+        written = beat.write(f"finish of job {job_id}",
+                             lambda: store.finish(job_id, attempt, state, outcome, message, summary, blob))
+    if written is None:
+        return "lease_lost"
     if written:  # operations metrics (jobs/metrics.py)
         metrics.job_finished(store.r, store.keys, job_id)
     return state if written else "fenced"

@@ -68,7 +68,7 @@ def test_heartbeat_reports_progress_and_fences_stale_attempts(store):
 def test_an_expired_lease_is_requeued_and_claimed_again(store):
     (rec,) = make(store)
     store.claim(rec.id)
-    store.r.hset(store.keys.job(rec.id), "lease", time.time() - 1)
+    store.r.hset(store.keys.job(rec.id), "lease", store.redis_time() - 1)
     assert store.expired_running() == [rec.id]
     assert store.requeue(rec.id) == 1
     assert store.requeue(rec.id) == 0  # a second reconciler does nothing
@@ -79,7 +79,7 @@ def test_a_job_that_kills_its_worker_three_times_fails(store):
     (rec,) = make(store)
     for _ in range(store.settings.max_attempts):
         assert store.claim(rec.id)[0] == "claimed"
-        store.r.hset(store.keys.job(rec.id), "lease", time.time() - 1)
+        store.r.hset(store.keys.job(rec.id), "lease", store.redis_time() - 1)
         store.requeue(rec.id)
     status, _ = store.claim(rec.id)
     final = store.get(rec.id)
@@ -148,10 +148,89 @@ def test_every_key_a_job_writes_has_a_ttl(store):
     assert keys and all(store.r.ttl(k) > 0 for k in keys), [k for k in keys if store.r.ttl(k) <= 0]
 
 
+def publisher(store):
+    from jobs.queue import Publisher
+
+    return Publisher(store.settings)
+
+
 def test_queued_jobs_whose_message_is_gone_are_found_once(store):
     (rec,) = make(store)
-    assert store.stranded_queued(older_than=3600) == []  # young: still legitimately waiting
-    assert store.stranded_queued(older_than=-1) == [rec.id]
-    assert store.stranded_queued(older_than=1) == []  # just republished
+    assert store.stranded_queued(grace=0) == []  # first sight: marked, not yet republished
+    assert store.stranded_queued(grace=3600) == []  # not gone for long enough
+    assert store.stranded_queued(grace=0) == [rec.id]
+    assert store.stranded_queued(grace=0) == []  # just republished: not again
     store.r.rpush(store.settings.interactive_queue, b"a message")
-    assert store.stranded_queued(older_than=-1) == []  # the broker still holds messages
+    assert store.stranded_queued(grace=0) == []  # the broker holds a message we cannot read
+
+
+def test_a_stranded_job_is_found_behind_a_backlog(store):
+    # The sweep used to run only when the broker's queue was empty: under a backlog a job
+    # whose message was lost waited indefinitely.
+    lost, *waiting = make(store, 6)
+    pub = publisher(store)
+    for rec in waiting:  # five messages in the broker's list; the first job's message is lost
+        pub.publish(rec.id)
+    assert store.r.llen(store.settings.interactive_queue) == 5
+    assert store.stranded_queued(grace=0) == []
+    assert store.stranded_queued(grace=0) == [lost.id]
+    for _ in range(3):  # jobs whose message is in the list are never republished
+        assert store.stranded_queued(grace=0) == []
+
+
+def test_a_job_taken_from_the_list_and_claimed_is_not_stranded(store):
+    first, second = make(store, 2)
+    pub = publisher(store)
+    pub.publish(first.id)
+    pub.publish(second.id)
+    store.r.rpop(store.settings.interactive_queue)  # a worker takes the first message...
+    assert store.stranded_queued(grace=0) == []  # ...first seen gone...
+    store.claim(first.id)  # ...and claims it: not stranded
+    assert store.stranded_queued(grace=0) == []
+    assert store.get(first.id).state == "running"
+
+
+def test_a_requeued_job_is_stranded_only_once_its_new_message_is_gone(store):
+    old, new = make(store, 2)
+    pub = publisher(store)
+    store.claim(old.id)
+    store.r.hset(store.keys.job(old.id), "lease", store.redis_time() - 1)
+    assert store.requeue(old.id) == 1
+    pub.publish(new.id)
+    pub.publish(old.id)  # republished after the requeue: behind the newer job's message
+    for _ in range(3):
+        assert store.stranded_queued(grace=0) == []
+    store.r.delete(store.settings.interactive_queue)  # both messages lost (a broker crash)
+    assert store.stranded_queued(grace=0) == []
+    assert sorted(store.stranded_queued(grace=0)) == sorted([old.id, new.id])
+
+
+class SkewedClock:
+    """A host clock off by ``offset`` seconds, in place of the time module."""
+
+    def __init__(self, offset: float):
+        self.offset = offset
+
+    def time(self) -> float:
+        return time.time() + self.offset
+
+    def __getattr__(self, name):
+        return getattr(time, name)
+
+
+@pytest.mark.parametrize("worker_offset,reconciler_offset", [(-60, 0), (0, 60), (-60, 60)])
+def test_a_worker_with_a_skewed_clock_keeps_its_live_job(store, monkeypatch, worker_offset, reconciler_offset):
+    # Leases used to be written and compared with each host's time.time(): a worker whose
+    # clock ran 60 s slow (or a reconciler 60 s fast) had its live job requeued.
+    import jobs.store
+
+    (rec,) = make(store)
+    monkeypatch.setattr(jobs.store, "time", SkewedClock(worker_offset))
+    _, attempt = store.claim(rec.id)
+    assert store.heartbeat(rec.id, attempt, 0.5) == 0
+    monkeypatch.setattr(jobs.store, "time", SkewedClock(reconciler_offset))
+    assert store.expired_running() == []
+    assert store.requeue(rec.id) == 0
+    assert store.get(rec.id).state == "running"
+    store.r.hset(store.keys.job(rec.id), "lease", store.redis_time() - 1)  # its worker stops beating
+    assert store.expired_running() == [rec.id] and store.requeue(rec.id) == 1
