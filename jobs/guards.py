@@ -26,8 +26,26 @@ class RateState:
 def hit_rate(client: redis.Redis, keys: Keys, owner: str, limit: int, window: int) -> RateState:
     """Fixed-window counter: ``limit`` requests per ``window`` seconds per owner."""
     now = time.time()
+    return _hit(client, keys.rate(owner, int(now // window)), now, limit, window)
+
+
+def hit_address(client: redis.Redis, keys: Keys, address: str, limit: int, window: int) -> RateState:
+    """The same counter for requests without a valid key, per client address."""
+    now = time.time()
+    return _hit(client, keys.rate_address(address, int(now // window)), now, limit, window)
+
+
+def peek_address(client: redis.Redis, keys: Keys, address: str, limit: int, window: int) -> RateState:
+    """The address window's state without counting this request."""
+    now = time.time()
     slot = int(now // window)
-    key = keys.rate(owner, slot)
+    count = int(client.get(keys.rate_address(address, slot)) or 0)
+    reset = int((slot + 1) * window - now) + 1
+    return RateState(count < limit, limit, max(limit - count, 0), reset)
+
+
+def _hit(client: redis.Redis, key: str, now: float, limit: int, window: int) -> RateState:
+    slot = int(now // window)
     pipe = client.pipeline(transaction=False)  # one round trip; no MULTI/EXEC on the hot path
     pipe.incr(key)
     pipe.expire(key, 2 * window)
