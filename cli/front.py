@@ -76,6 +76,9 @@ def _error_pages(max_body_bytes: int) -> list[tuple[int, int, str]]:
         (408, 408, _problem(408, "Request Timeout",
                             f"the request was not sent in time (head within {HEADER_SECONDS} s, no "
                             f"pause over {BODY_SECONDS} s in the body)", "request-timeout")),
+        (429, 429, _problem(429, "Too Many Requests",
+                            f"more than {CONNECTIONS_PER_ADDRESS} open connections from this address; "
+                            "close some and retry", "too-many-connections")),
         (502, 503, _problem(503, "API unavailable",
                             "the API behind the front is not answering; retry shortly", "api-unavailable")),
         (504, 503, _problem(503, "API unavailable",
@@ -132,6 +135,7 @@ http {{
     client_header_buffer_size 1k;
     large_client_header_buffers {HEADER_BUFFERS} {HEADER_BUFFER};
     limit_conn_zone $binary_remote_addr zone=per_address:1m;
+    limit_conn_status 429;
 
     upstream api {{
         server unix:{socket_path(d)};
