@@ -35,15 +35,6 @@ def hit_address(client: redis.Redis, keys: Keys, address: str, limit: int, windo
     return _hit(client, keys.rate_address(address, int(now // window)), now, limit, window)
 
 
-def peek_address(client: redis.Redis, keys: Keys, address: str, limit: int, window: int) -> RateState:
-    """The address window's state without counting this request."""
-    now = time.time()
-    slot = int(now // window)
-    count = int(client.get(keys.rate_address(address, slot)) or 0)
-    reset = int((slot + 1) * window - now) + 1
-    return RateState(count < limit, limit, max(limit - count, 0), reset)
-
-
 def _hit(client: redis.Redis, key: str, now: float, limit: int, window: int) -> RateState:
     slot = int(now // window)
     pipe = client.pipeline(transaction=False)  # one round trip; no MULTI/EXEC on the hot path

@@ -6,7 +6,7 @@ the dashboard's pages and static files are public; everything else under /v1 nee
 (unless the server runs with STIFFLANE_AUTH_MODE=off, where every request acts as the
 single owner "local"). Requests with a valid key count in their owner's rate window;
 requests without one (public /v1 paths, missing or refused keys) in their client
-address's window, and past it that address gets 429 for everything under /v1.
+address's window, and past it those get 429.
 """
 from __future__ import annotations
 
@@ -89,17 +89,16 @@ def _authenticate() -> None:
         g.principal = LOCAL
     else:
         # Requests without a valid key (public paths, missing or refused keys) count in the
-        # client address's window; past it, every request from that address is 429, so keys
-        # cannot be guessed at speed.
+        # client address's window, and past it they get 429: keys cannot be tried at speed,
+        # and a request with a valid key costs nothing more.
         address = client_address()
-        peek = guards.peek_address(ctx.store.r, ctx.store.keys, address, s.address_rate_limit,
-                                   s.rate_window_seconds)
-        if not peek.allowed:
-            raise _too_many(peek, s.rate_window_seconds, " without a valid key from this address")
         if request.path in PUBLIC_PATHS:
-            g.rate = guards.hit_address(ctx.store.r, ctx.store.keys, address, s.address_rate_limit,
-                                        s.rate_window_seconds)
             g.principal = _optional_principal(ctx)
+            if g.principal is None:
+                g.rate = guards.hit_address(ctx.store.r, ctx.store.keys, address, s.address_rate_limit,
+                                            s.rate_window_seconds)
+                if not g.rate.allowed:
+                    raise _too_many(g.rate, s.rate_window_seconds, " without a valid key from this address")
             return
         header = request.headers.get("Authorization", "")
         scheme, _, key = header.partition(" ")
