@@ -71,3 +71,56 @@ def test_neither_log_keeps_query_strings(stack):
     api_log = (logs / f"api-{stack.port}.log").read_text(errors="replace")
     assert "GET /v1/jobs HTTP/1.1" in front_log and "GET /v1/jobs HTTP/1.1" in api_log
     assert marker not in front_log and marker not in api_log
+
+
+@pytest.fixture(scope="module")
+def keyed_front(redis_server, tmp_path_factory):
+    """The API behind the front with keys required and a small address window (no worker)."""
+    import os
+    import signal
+    import subprocess
+    import uuid
+
+    from cli import front
+    from tests.conftest import free_port
+
+    env = dict(os.environ, REDIS_URL=redis_server.url, STIFFLANE_KEY_PREFIX=f"f{uuid.uuid4().hex[:8]}",
+               STIFFLANE_AUTH_MODE="keys", STIFFLANE_ADDRESS_RATE_LIMIT="3", PYTHONPATH=str(ROOT))
+    port = free_port()
+    log = open(ROOT / "var" / "test-logs" / f"keyed-front-{port}.log", "ab")
+
+    def spawn(name, cmd):
+        return subprocess.Popen(cmd, env=env, cwd=ROOT, stdout=log, stderr=subprocess.STDOUT,
+                                start_new_session=True)
+
+    procs = front.start_api("127.0.0.1", port, spawn, workers=1, front_dir=tmp_path_factory.mktemp("front"))
+    base = f"http://127.0.0.1:{port}"
+    deadline = time.time() + 30
+    while time.time() < deadline:
+        try:
+            requests.get(base + "/ui/app.css", timeout=2)
+            break
+        except requests.RequestException:
+            time.sleep(0.2)
+    yield base
+    for _, p in reversed(procs):
+        os.killpg(p.pid, signal.SIGTERM)
+        p.wait(15)
+
+
+def test_behind_the_front_wrong_keys_are_limited_by_the_real_client_address(keyed_front):
+    import socket
+
+    wrong = {"Authorization": "Bearer slk_00000000_" + "A" * 43}
+    # The client's own X-Forwarded-For is replaced by the front: forging it does not escape.
+    codes = [requests.get(keyed_front + "/v1/jobs", timeout=10,
+                          headers={**wrong, "X-Forwarded-For": f"10.1.1.{i}"}).status_code for i in range(5)]
+    assert codes == [401, 401, 401, 429, 429]
+
+    # Another client address (127.0.0.2 over loopback) has a window of its own.
+    with socket.create_connection(("127.0.0.1", int(keyed_front.rsplit(":", 1)[1])), timeout=10,
+                                  source_address=("127.0.0.2", 0)) as s:
+        s.sendall(b"GET /v1/jobs HTTP/1.1\r\nHost: x\r\nConnection: close\r\n"
+                  b"Authorization: Bearer slk_00000000_" + b"A" * 43 + b"\r\n\r\n")
+        head = s.recv(200).decode()
+    assert head.startswith("HTTP/1.1 401"), head
