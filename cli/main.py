@@ -254,7 +254,7 @@ def cmd_up(args) -> int:
 STACK_EXAMPLES = {
     "up": "  stifflane up                      # Redis, a worker, API and dashboard on :8750, then the demo\n"
           "  stifflane up --port 9000 --no-demo\n"
-          "  stifflane up --no-front          # gunicorn on the port itself, without nginx\n"
+          "  stifflane up --no-front           # gunicorn on the port itself, without nginx\n"
           "  REDIS_URL=redis://db:6379/0 stifflane up   # use an existing Redis",
     "redis": "  stifflane redis --port 6390 --data var/redis",
     "api": "  stifflane api --host 0.0.0.0 --port 8750 --workers 4 --front",
