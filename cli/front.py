@@ -76,6 +76,9 @@ def _error_pages(max_body_bytes: int) -> list[tuple[int, int, str]]:
         (408, 408, _problem(408, "Request Timeout",
                             f"the request was not sent in time (head within {HEADER_SECONDS} s, no "
                             f"pause over {BODY_SECONDS} s in the body)", "request-timeout")),
+        (404, 404, _problem(404, "Not Found", "no such path", "not-found")),
+        (500, 500, _problem(500, "Internal error", "the front failed; see var/front/error.log",
+                            "internal-error")),
         (429, 429, _problem(429, "Too Many Requests",
                             f"more than {CONNECTIONS_PER_ADDRESS} open connections from this address; "
                             "close some and retry", "too-many-connections")),

@@ -35,6 +35,13 @@ def test_the_front_answers_an_overlong_header_with_problem_json(stack):
     assert r.json()["title"] == "Request Header Fields Too Large"
 
 
+def test_the_fronts_own_pages_are_not_reachable_and_api_404s_pass_through(stack):
+    r = requests.get(stack.base + "/.front/413", timeout=10)
+    assert r.status_code == 404 and r.headers["Content-Type"] == PROBLEM
+    r = requests.get(stack.base + "/v1/jobs/0123456789abcdef0123456789ab", timeout=10)
+    assert r.status_code == 404 and r.json()["instance"] == "/v1/jobs/0123456789abcdef0123456789ab"
+
+
 def test_many_small_headers_pass_the_front_and_gunicorn(stack):
     headers = {f"X-H{i}": "v" for i in range(150)}  # above gunicorn's default of 100 fields
     assert requests.get(stack.base + "/v1/health", headers=headers, timeout=10).status_code == 200
