@@ -4,7 +4,7 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: run test install bench bench-quick clean
+.PHONY: run test install front bench bench-quick clean
 
 $(STAMP): pyproject.toml client/pyproject.toml
 	$(PYTHON) -m venv $(VENV)
@@ -14,10 +14,25 @@ $(STAMP): pyproject.toml client/pyproject.toml
 
 install: $(STAMP)
 
-run: $(STAMP)
+# The front of the API (nginx, see cli/front.py): `stifflane up` and the test stack need it.
+# Installed from Debian's packages when running as root; otherwise this says how.
+front:
+	@if ! command -v nginx >/dev/null 2>&1 && [ ! -x /usr/sbin/nginx ]; then \
+	  if [ "$$(id -u)" = 0 ] && command -v apt-get >/dev/null 2>&1; then \
+	    echo "installing Debian's nginx (the API's front)"; \
+	    apt-get update -qq && DEBIAN_FRONTEND=noninteractive apt-get install -y -qq nginx-light >/dev/null; \
+	  else \
+	    echo "The API runs behind nginx, which is missing. Install it with:"; \
+	    echo "    sudo apt-get install nginx-light"; \
+	    echo "or start without it (slow clients can then stall the API): $(BIN)/stifflane up --no-front"; \
+	    exit 1; \
+	  fi; \
+	fi
+
+run: $(STAMP) front
 	$(BIN)/stifflane up
 
-test: $(STAMP)
+test: $(STAMP) front
 	$(BIN)/stifflane warm
 	$(BIN)/python -m pytest
 

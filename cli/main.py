@@ -1,7 +1,7 @@
 """``stifflane``: start the stack, or one part of it; submit and follow jobs.
 
 Stack:
-    stifflane up        embedded Redis + one worker + API and dashboard, then the demo job
+    stifflane up        embedded Redis + one worker + API and dashboard behind nginx, then the demo job
     stifflane redis     only the embedded Redis (foreground)
     stifflane api       only the API and dashboard (gunicorn)
     stifflane worker    only a worker (Celery, one process per core by default)
@@ -55,10 +55,14 @@ def _env(redis_url: str | None = None) -> dict:
     return env
 
 
+ACCESS_LOG_FORMAT = '%(h)s %(t)s "%(m)s %(U)s %(H)s" %(s)s %(B)s %(M)sms'  # %(U)s: no query string
+
+
 def api_command(host: str, port: int, workers: int = 2) -> list[str]:
     return [sys.executable, "-m", "gunicorn", "--bind", f"{host}:{port}", "--workers", str(workers),
             "--threads", "4", "--timeout", "60", "--graceful-timeout", "5",
-            "--access-logfile", "-", "--logger-class", "service.access_log.Logger",  # JSON lines on request
+            "--access-logfile", "-", "--access-logformat", ACCESS_LOG_FORMAT,
+            "--logger-class", "service.access_log.Logger",  # JSON lines on request
             "service:create_app()"]
 
 
@@ -126,6 +130,10 @@ def cmd_redis(args) -> int:
 
 def cmd_api(args) -> int:
     check_redis()
+    if args.front:
+        from cli import front
+
+        return front.serve(args.host, args.port, args.workers, _env())
     os.execvpe(sys.executable, api_command(args.host, args.port, args.workers), _env())
 
 
@@ -220,7 +228,10 @@ def cmd_up(args) -> int:
 
         procs.append(("worker", subprocess.Popen(supervise.command(worker_command(args.concurrency)),
                                                  env=env, cwd=ROOT)))
-        procs.append(("api", subprocess.Popen(api_command("127.0.0.1", args.port), env=env, cwd=ROOT)))
+        from cli import front  # nginx in front of gunicorn (cli/front.py)
+
+        procs += front.start_api("127.0.0.1", args.port, lambda name, cmd: subprocess.Popen(cmd, env=env, cwd=ROOT),
+                                 front=not args.no_front)
         base = f"http://127.0.0.1:{args.port}"
         if not _wait_http(base + "/v1/health", 30):
             print("the API did not come up within 30 s", file=sys.stderr)
@@ -254,9 +265,10 @@ def cmd_up(args) -> int:
 STACK_EXAMPLES = {
     "up": "  stifflane up                      # Redis, a worker, API and dashboard on :8750, then the demo\n"
           "  stifflane up --port 9000 --no-demo\n"
+          "  stifflane up --no-front           # gunicorn on the port itself, without nginx\n"
           "  REDIS_URL=redis://db:6379/0 stifflane up   # use an existing Redis",
     "redis": "  stifflane redis --port 6390 --data var/redis",
-    "api": "  stifflane api --host 0.0.0.0 --port 8750 --workers 4",
+    "api": "  stifflane api --host 0.0.0.0 --port 8750 --workers 4 --front",
     "worker": "  stifflane worker --concurrency 2",
     "warm": "  stifflane warm",
 }
@@ -279,6 +291,8 @@ def parser() -> argparse.ArgumentParser:
     up.add_argument("--redis-port", type=int, default=DEFAULT_REDIS_PORT)
     up.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
     up.add_argument("--no-demo", action="store_true", help="do not submit the demo job")
+    up.add_argument("--no-front", action="store_true",
+                    help="serve gunicorn directly, without nginx in front (slow clients can stall it)")
     up.set_defaults(func=cmd_up)
     r = sub.add_parser("redis", help="start only the embedded Redis")
     r.add_argument("--port", type=int, default=DEFAULT_REDIS_PORT)
@@ -288,6 +302,8 @@ def parser() -> argparse.ArgumentParser:
     a.add_argument("--host", default="127.0.0.1")
     a.add_argument("--port", type=int, default=DEFAULT_API_PORT)
     a.add_argument("--workers", type=int, default=2)
+    a.add_argument("--front", action="store_true",
+                   help="put nginx in front (buffers requests, times out slow clients); gunicorn on a unix socket")
     a.set_defaults(func=cmd_api)
     w = sub.add_parser("worker", help="start only a worker")
     w.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)

@@ -3,7 +3,8 @@
 Configured as a database, not a cache: AOF with fsync every second, no
 eviction, loopback only, protected mode, and a password made on first start
 (kept beside the data, mode 600; never in the repository). Data lives under
-the project's var/.
+the project's var/, private to the account: the folder is 0700 and every file in it,
+the AOF included, 0600.
 """
 from __future__ import annotations
 
@@ -55,12 +56,22 @@ def config_lines(port: int, data_dir: Path, maxmemory: str = "2gb") -> list[str]
     ]
 
 
+def private_files(data_dir: Path) -> None:
+    """The data folder 0700 and everything in it 0600: the AOF and RDB files hold every job,
+    result and key digest, like the password file beside them."""
+    data_dir.chmod(0o700)
+    for path in data_dir.rglob("*"):
+        path.chmod(0o700 if path.is_dir() else 0o600)
+
+
 def start_redis(port: int, data_dir: Path) -> subprocess.Popen:
     data_dir.mkdir(parents=True, exist_ok=True)
     conf = data_dir / "redis.conf"
     conf.write_text("\n".join(config_lines(port, data_dir.resolve())) + "\n")
     conf.chmod(0o600)
-    proc = subprocess.Popen([redis_binary(), str(conf)])
+    private_files(data_dir)  # files of an earlier version of this stack may be 0644
+    # umask 077: every file Redis makes (AOF, its rewrites, snapshots, log) is 0600.
+    proc = subprocess.Popen([redis_binary(), str(conf)], umask=0o077)
     client = redis.Redis(port=port, password=password(data_dir), socket_connect_timeout=0.5)
     deadline = time.time() + 15
     while time.time() < deadline:

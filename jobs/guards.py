@@ -26,8 +26,17 @@ class RateState:
 def hit_rate(client: redis.Redis, keys: Keys, owner: str, limit: int, window: int) -> RateState:
     """Fixed-window counter: ``limit`` requests per ``window`` seconds per owner."""
     now = time.time()
+    return _hit(client, keys.rate(owner, int(now // window)), now, limit, window)
+
+
+def hit_address(client: redis.Redis, keys: Keys, address: str, limit: int, window: int) -> RateState:
+    """The same counter for requests without a valid key, per client address."""
+    now = time.time()
+    return _hit(client, keys.rate_address(address, int(now // window)), now, limit, window)
+
+
+def _hit(client: redis.Redis, key: str, now: float, limit: int, window: int) -> RateState:
     slot = int(now // window)
-    key = keys.rate(owner, slot)
     pipe = client.pipeline(transaction=False)  # one round trip; no MULTI/EXEC on the hot path
     pipe.incr(key)
     pipe.expire(key, 2 * window)
@@ -50,6 +59,25 @@ class IdempotentReply:
     headers: dict
 
 
+# Both scripts run atomically in Redis: a record is created with its TTL in one step, and a
+# reply is added only to a record that still exists (HSET on a missing key would create a
+# record without TTL that answers 409 for ever).
+_BEGIN = """
+if redis.call('HSETNX', KEYS[1], 'fingerprint', ARGV[1]) == 1 then
+  redis.call('EXPIRE', KEYS[1], ARGV[2])
+  return {1}
+end
+return {0, redis.call('HGET', KEYS[1], 'fingerprint'), redis.call('HGET', KEYS[1], 'reply')}
+"""
+_FINISH = """
+if redis.call('EXISTS', KEYS[1]) == 1 then
+  redis.call('HSET', KEYS[1], 'reply', ARGV[1])
+  return 1
+end
+return 0
+"""
+
+
 def idempotency_begin(client: redis.Redis, keys: Keys, owner: str, key: str,
                       print_: str) -> tuple[str, Optional[IdempotentReply]]:
     """Start or look up a request with this Idempotency-Key.
@@ -59,20 +87,22 @@ def idempotency_begin(client: redis.Redis, keys: Keys, owner: str, key: str,
     ('in_flight', None) while the first request is still running.
     """
     rkey = keys.idempotency(owner, key)
-    if client.hsetnx(rkey, "fingerprint", print_):
-        client.expire(rkey, IDEMPOTENCY_TTL)
+    found = client.eval(_BEGIN, 1, rkey, print_, IDEMPOTENCY_TTL)
+    if found[0] == 1:
         return "new", None
-    stored_print, reply = client.hmget(rkey, "fingerprint", "reply")
-    if stored_print is not None and stored_print.decode() != print_:
+    stored_print = found[1] if len(found) > 1 else None
+    reply = found[2] if len(found) > 2 else None
+    if stored_print and stored_print.decode() != print_:
         return "mismatch", None
-    if reply is None:
+    if not reply:
         return "in_flight", None
     data = json.loads(reply)
     return "replay", IdempotentReply(data["status"], data["body"], data["headers"])
 
 
 def idempotency_finish(client: redis.Redis, keys: Keys, owner: str, key: str, reply: IdempotentReply) -> None:
-    client.hset(keys.idempotency(owner, key), "reply",
+    """Keep the first reply for replays (only while the record lives: it never loses its TTL)."""
+    client.eval(_FINISH, 1, keys.idempotency(owner, key),
                 json.dumps({"status": reply.status, "body": reply.body, "headers": reply.headers}))
 
 

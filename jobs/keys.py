@@ -92,6 +92,10 @@ class Keys:
     def rate(self, owner: str, window: int) -> str:
         return f"{self.prefix}:rate:{owner}:{window}"
 
+    def rate_address(self, address: str, window: int) -> str:
+        """Requests without a valid key (public paths, refused keys) from one client address."""
+        return f"{self.prefix}:rate-addr:{address}:{window}"
+
     def index_state(self, state: str) -> str:
         return f"{self.prefix}:index:state:{state}"
 

@@ -32,6 +32,7 @@ class Settings:
     auth_mode: str = "keys"              # "keys": Bearer API keys required; "off": one local owner
     rate_limit: int = 600                # requests per owner per rate window
     rate_window_seconds: int = 60
+    address_rate_limit: int = 300        # requests without a valid key per client address per window
     max_active_jobs: int = 2000          # queued + running jobs per owner
     batch_queue: str = "stifflane.batches"   # chunks of batches (jobs/batch_store.py)
     max_batch_members: int = 100_000

@@ -47,6 +47,42 @@ class StrictInteger(fields.Integer):
         return super()._deserialize(value, attr, data, **kwargs)
 
 
+class StrictBoolean(fields.Boolean):
+    """JSON true or false only: "yes", "true", 1 and 0 are refused, not read as booleans."""
+
+    MESSAGE = "must be true or false (a JSON boolean)"
+
+    def __init__(self, **kwargs):
+        kwargs.setdefault("error_messages", {}).setdefault("null", self.MESSAGE)
+        super().__init__(**kwargs)
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if not isinstance(value, bool):
+            raise ValidationError(self.MESSAGE)
+        return value
+
+
+class Overrides(fields.Dict):
+    """{name: finite number}; an error points at the name (/parameters/k), not at marshmallow's
+    inner /parameters/k/value."""
+
+    def __init__(self, **kwargs):
+        super().__init__(keys=fields.String(), values=FiniteFloat(), **kwargs)
+
+    def _deserialize(self, value, attr, data, **kwargs):
+        if not isinstance(value, dict):
+            raise ValidationError("must be an object of name: number")
+        number, errors, out = FiniteFloat(), {}, {}
+        for name, v in value.items():
+            try:
+                out[name] = number.deserialize(v)
+            except ValidationError as e:
+                errors[name] = e.messages
+        if errors:
+            raise ValidationError(errors)
+        return out
+
+
 # Below this, the error weights atol + rtol|y| of states near zero overflow the error norms of
 # float64 (their squares pass 1e308); no physical quantity is resolved that finely.
 MIN_ATOL = 1e-60
@@ -113,10 +149,9 @@ class JobSpecSchema(Schema):
         "type": "object", "required": ["states"],
         "description": "the model: states, parameters, derived, ddt, reactions, events "
                        "(see docs/model-language.md)"})
-    parameters = fields.Dict(keys=fields.String(), values=FiniteFloat(), load_default=dict,
-                             metadata={"description": "overrides of the model's parameter values"})
-    initial = fields.Dict(keys=fields.String(), values=FiniteFloat(), load_default=dict,
-                          metadata={"description": "overrides of the model's initial values"})
+    parameters = Overrides(load_default=dict,
+                           metadata={"description": "overrides of the model's parameter values"})
+    initial = Overrides(load_default=dict, metadata={"description": "overrides of the model's initial values"})
     span = fields.List(FiniteFloat(), required=True, validate=validate.Length(equal=2),
                        metadata={"description": "[t_start, t_end], t_end > t_start"})
     output = fields.Nested(OutputSchema, load_default=lambda: {"count": 101, "spacing": "linear"})
@@ -129,7 +164,7 @@ class JobSpecSchema(Schema):
                                  "model, kept on disk): 'auto' compiles for batches and for models "
                                  "solved before, 'always', or 'never' (the interpreter)"})
     limits = fields.Nested(LimitsSchema, load_default=lambda: LimitsSchema().load({}))
-    nonnegative = fields.Boolean(load_default=False,
+    nonnegative = StrictBoolean(load_default=False,
                                  metadata={"description": "keep every state >= 0 (concentrations)"})
 
     @validates_schema(skip_on_field_errors=False)

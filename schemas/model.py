@@ -38,6 +38,31 @@ def issues_to_messages(issues: list[ModelIssue]) -> dict:
     return messages
 
 
+def _expression_type_issues(model: dict) -> list[ModelIssue]:
+    """Places where the model language wants an expression written as a string (ddt, derived,
+    events' when) and got another JSON type; the engine's reader takes a bare number there."""
+    issues = []
+    for section in ("ddt", "derived"):
+        entries = model.get(section)
+        if isinstance(entries, dict):
+            for name, value in entries.items():
+                if not isinstance(value, str):
+                    issues.append(ModelIssue((section, name), _not_a_string(value)))
+    events = model.get("events")
+    if isinstance(events, list):
+        for k, event in enumerate(events):
+            if isinstance(event, dict) and "when" in event and not isinstance(event["when"], str):
+                issues.append(ModelIssue(("events", k, "when"), _not_a_string(event["when"])))
+    return issues
+
+
+def _not_a_string(value) -> str:
+    kind = {bool: "a boolean", int: "a number", float: "a number", dict: "an object",
+            list: "a list", type(None): "null"}.get(type(value), "not a string")
+    example = f' (write "{value!r}" for a constant)' if type(value) in (int, float) else ""
+    return f"must be an expression written as a string, got {kind}{example}"
+
+
 class ModelField(fields.Field):
     """A model in the Stifflane model language (see docs/model-language.md)."""
 
@@ -52,7 +77,9 @@ class ModelField(fields.Field):
         if not isinstance(value, dict):
             raise ValidationError("must be an object with 'states' and 'ddt' and/or 'reactions'")
         try:
-            issues = check_model(value, self.limits)
+            typed = _expression_type_issues(value)
+            issues = typed + [i for i in check_model(value, self.limits)
+                              if i.path not in {t.path for t in typed}]
         except ExprError as e:  # a reader path that let one escape: still a problem of the model
             raise ValidationError({SCHEMA_KEY: [f"the model cannot be prepared: {e.message}"]})
         if issues:

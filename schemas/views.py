@@ -64,7 +64,9 @@ class ResultSchema(Schema):
 class HealthSchema(Schema):
     status = fields.String(metadata={"description": "ok or degraded"})
     redis = fields.Dict()
-    workers = fields.List(fields.Dict())
+    worker_count = fields.Integer(metadata={"description": "workers that reported in the last 30 s"})
+    workers = fields.List(fields.Dict(), metadata={
+        "description": "each worker's name, host and process (only for a request with a valid key)"})
     queues = fields.Dict(keys=fields.String(), values=fields.Integer())
     detail = fields.String()
 

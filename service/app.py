@@ -34,10 +34,11 @@ def create_app(settings: Optional[Settings] = None, store: Optional[JobStore] = 
         store=store or JobStore.connect(settings),
         publisher=publisher or Publisher(settings),
     )
-    from service import auth, dashboard, health, jobs_api, problems
+    from service import auth, dashboard, health, jobs_api, jsonbody, problems
 
     problems.install(app)
     auth.install(app)
+    jsonbody.install(app)
     app.register_blueprint(jobs_api.bp)
     app.register_blueprint(health.bp)
     app.register_blueprint(dashboard.bp)

@@ -1,9 +1,12 @@
-"""API-key authentication, per-owner rate limits, and the request's principal.
+"""API-key authentication, rate limits, and the request's principal.
 
-Keys travel in ``Authorization: Bearer <key>``, never in the URL. Health, the
-OpenAPI document and the dashboard's static files are public; everything else
-under /v1 needs a key (unless the server runs with STIFFLANE_AUTH_MODE=off,
-where every request acts as the single owner "local").
+Keys travel in ``Authorization: Bearer <key>``, never in the URL: any query parameter
+that looks like a credential is refused on every path. Health, the OpenAPI document and
+the dashboard's pages and static files are public; everything else under /v1 needs a key
+(unless the server runs with STIFFLANE_AUTH_MODE=off, where every request acts as the
+single owner "local"). Requests with a valid key count in their owner's rate window;
+requests without one (public /v1 paths, missing or refused keys) in their client
+address's window, and past it those get 429.
 """
 from __future__ import annotations
 
@@ -30,33 +33,108 @@ def _unauthorized(detail: str) -> ApiProblem:
                       kind="unauthorized")
 
 
+# Query parameters whose names look like a credential (compared without case, "-", "_" or ".").
+CREDENTIAL_WORDS = ("key", "token", "auth", "bearer", "secret", "passw", "pwd", "credential",
+                    "session", "jwt", "signature")
+
+
+def credential_parameters() -> list[str]:
+    """Names of query parameters that carry, or look like they carry, a credential."""
+    found = []
+    for name, value in request.args.items(multi=True):
+        plain = "".join(c for c in name.lower() if c.isalnum())
+        if any(word in plain for word in CREDENTIAL_WORDS) or value.startswith("slk_"):
+            found.append(name)
+    return found
+
+
+def client_address() -> str:
+    """The client's address. Behind our own front (nginx on a unix socket, see cli/front.py)
+    the socket has no peer address and the front sets X-Forwarded-For to the address it saw,
+    replacing whatever the client sent; over TCP the peer address is the client and any
+    X-Forwarded-For is the client's own claim, so it is ignored."""
+    remote = request.remote_addr
+    if not remote:
+        forwarded = request.headers.get("X-Forwarded-For", "").split(",")[-1].strip()
+        return forwarded or "unix"
+    return remote
+
+
+def _refuse_keys_in_url() -> None:
+    names = credential_parameters()
+    if names:
+        raise ApiProblem(400, "Key in URL", f"query parameter {names[0]!r} looks like a credential: send "
+                         "the API key in the Authorization header, never in the URL (URLs end up in "
+                         "logs and browser history); revoke a key that was sent this way",
+                         kind="key-in-url")
+
+
+def _too_many(state: guards.RateState, window: int, who: str) -> ApiProblem:
+    return ApiProblem(429, "Too Many Requests",
+                      f"more than {state.limit} requests{who} in {window} s; retry in "
+                      f"{state.reset_seconds} s", kind="rate-limited",
+                      headers={"Retry-After": str(state.reset_seconds), **_rate_headers(state)})
+
+
 def _authenticate() -> None:
-    if not request.path.startswith("/v1/") or request.path in PUBLIC_PATHS:
+    if request.args:  # every path: pages and public endpoints too
+        _refuse_keys_in_url()
+    if not request.path.startswith("/v1/"):
         return
     ctx = current_app.extensions["stifflane"]
-    if any(name in request.args for name in ("key", "api_key", "apikey", "token", "access_token")):
-        raise ApiProblem(400, "Key in URL", "send the API key in the Authorization header, never in "
-                         "the URL (URLs end up in logs); revoke a key that was sent this way",
-                         kind="key-in-url")
-    if ctx.settings.auth_mode == "off":
+    s = ctx.settings
+    if s.auth_mode == "off":
+        if request.path in PUBLIC_PATHS:
+            return
         g.principal = LOCAL
     else:
+        # Requests without a valid key (public paths, missing or refused keys) count in the
+        # client address's window, and past it they get 429: keys cannot be tried at speed,
+        # and a request with a valid key costs nothing more.
+        address = client_address()
+        if request.path in PUBLIC_PATHS:
+            g.principal = _optional_principal(ctx)
+            if g.principal is None:
+                g.rate = guards.hit_address(ctx.store.r, ctx.store.keys, address, s.address_rate_limit,
+                                            s.rate_window_seconds)
+                if not g.rate.allowed:
+                    raise _too_many(g.rate, s.rate_window_seconds, " without a valid key from this address")
+            return
         header = request.headers.get("Authorization", "")
         scheme, _, key = header.partition(" ")
-        if scheme.lower() != "bearer" or not key.strip():
-            raise _unauthorized("send an API key as 'Authorization: Bearer <key>'")
-        principal = accounts.authenticate(ctx.store.r, ctx.store.keys, key.strip())
+        principal = None
+        if scheme.lower() == "bearer" and key.strip():
+            principal = accounts.authenticate(ctx.store.r, ctx.store.keys, key.strip())
         if principal is None:
+            state = guards.hit_address(ctx.store.r, ctx.store.keys, address, s.address_rate_limit,
+                                       s.rate_window_seconds)
+            if not state.allowed:
+                raise _too_many(state, s.rate_window_seconds, " without a valid key from this address")
+            if scheme.lower() != "bearer" or not key.strip():
+                raise _unauthorized("send an API key as 'Authorization: Bearer <key>'")
             raise _unauthorized("the API key is not valid (unknown or revoked)")
         g.principal = principal
-    state = guards.hit_rate(ctx.store.r, ctx.store.keys, g.principal.owner,
-                            ctx.settings.rate_limit, ctx.settings.rate_window_seconds)
+    state = guards.hit_rate(ctx.store.r, ctx.store.keys, g.principal.owner, s.rate_limit,
+                            s.rate_window_seconds)
     g.rate = state
     if not state.allowed:
-        raise ApiProblem(429, "Too Many Requests",
-                         f"more than {state.limit} requests in {ctx.settings.rate_window_seconds} s; "
-                         f"retry in {state.reset_seconds} s", kind="rate-limited",
-                         headers={"Retry-After": str(state.reset_seconds), **_rate_headers(state)})
+        raise _too_many(state, s.rate_window_seconds, "")
+
+
+def _optional_principal(ctx) -> accounts.Principal | None:
+    """The principal of a public request that carries a valid key (health shows it more)."""
+    scheme, _, key = request.headers.get("Authorization", "").partition(" ")
+    if scheme.lower() != "bearer" or not key.strip():
+        return None
+    return accounts.authenticate(ctx.store.r, ctx.store.keys, key.strip())
+
+
+def is_trusted() -> bool:
+    """True for a request made with a valid key, or on a server without keys."""
+    ctx = current_app.extensions["stifflane"]
+    if ctx.settings.auth_mode == "off":
+        return True
+    return g.get("principal") is not None
 
 
 def _rate_headers(state: guards.RateState) -> dict:

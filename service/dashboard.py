@@ -16,8 +16,25 @@ from flask import Blueprint, abort, make_response, render_template, send_from_di
 bp = Blueprint("dashboard", __name__)
 _STATIC = os.path.join(os.path.dirname(__file__), "static")
 _EXAMPLES = Path(__file__).resolve().parent.parent / "examples" / "jobs"
+# Pages load scripts, styles and images from this server only; no inline script or style
+# attribute runs (the scripts set styles through the style object, see static/api.js), no
+# other site may frame them (frame-ancestors, and X-Frame-Options for older browsers).
+PAGE_POLICY = ("default-src 'none'; script-src 'self'; style-src 'self'; img-src 'self' data: blob:; "
+               "connect-src 'self'; font-src 'self'; manifest-src 'self'; base-uri 'none'; "
+               "form-action 'self'; frame-ancestors 'none'")
+# Every other answer (JSON, results, assets) is never a document: nothing may run in it.
+DEFAULT_POLICY = "default-src 'none'; frame-ancestors 'none'"
 _PAGE_HEADERS = {"Cache-Control": "no-cache", "X-Content-Type-Options": "nosniff",
-                 "Referrer-Policy": "same-origin"}
+                 "Referrer-Policy": "same-origin", "Content-Security-Policy": PAGE_POLICY,
+                 "X-Frame-Options": "DENY"}
+
+
+@bp.after_app_request
+def _frame_and_script_policy(resp):
+    resp.headers.setdefault("Content-Security-Policy", DEFAULT_POLICY)
+    resp.headers.setdefault("X-Frame-Options", "DENY")
+    resp.headers.setdefault("X-Content-Type-Options", "nosniff")
+    return resp
 
 
 def _page(name: str):

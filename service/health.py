@@ -7,6 +7,7 @@ from flask import Blueprint, Response, current_app, json
 from redis.exceptions import RedisError
 
 from schemas.views import HealthSchema
+from service.auth import is_trusted
 
 bp = Blueprint("health", __name__, url_prefix="/v1")
 STALL_SECONDS = 120
@@ -30,19 +31,24 @@ def health():
           content: {application/json: {schema: Health}}
     """
     ctx = current_app.extensions["stifflane"]
-    body = {"status": "ok", "redis": {}, "workers": [], "queues": {}}
+    body = {"status": "ok", "redis": {}, "workers": [], "queues": {}}  # workers: with a key only
     status = 200
     try:
         started = time.perf_counter()
         ctx.store.r.ping()
         body["redis"] = {"reachable": True, "ping_ms": round(1000 * (time.perf_counter() - started), 2)}
-        body["workers"] = ctx.store.workers()
+        workers = ctx.store.workers()
+        body["worker_count"] = len(workers)
+        if is_trusted():  # host names and process ids only for a caller with a key
+            body["workers"] = workers
+        else:
+            del body["workers"]
         body["queues"] = {"broker:" + ctx.settings.interactive_queue: ctx.store.r.llen(ctx.settings.interactive_queue),
                           **{f"jobs:{k}": v for k, v in ctx.store.queue_counts().items()
                              if k in ("queued", "running")}}
         waited = ctx.store.oldest_queued_age()
         body["queues"]["oldest_queued_seconds"] = int(waited or 0)
-        if not body["workers"]:
+        if not workers:
             body["status"] = "degraded"
             body["detail"] = "no worker has reported in the last 30 s; queued jobs will wait"
         elif waited is not None and waited > STALL_SECONDS and body["queues"]["jobs:running"] == 0:

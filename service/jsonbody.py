@@ -3,13 +3,24 @@ from __future__ import annotations
 
 import json
 
-from flask import request
+from flask import Flask, current_app, request
 
-from service.problems import ApiProblem
+from service.problems import ApiProblem, too_large
 
 
 def _no_constants(token: str):
     raise ValueError(f"{token} is not valid JSON (numbers must be finite)")
+
+
+MAX_NUMBER_DIGITS = 400  # beyond float64's range (309 digits) anyway; CPython refuses 4300
+
+
+def _integer(token: str):
+    digits = len(token.lstrip("-"))
+    if digits > MAX_NUMBER_DIGITS:
+        raise ValueError(f"a number in the body has {digits} digits; numbers may have at most "
+                         f"{MAX_NUMBER_DIGITS} (every number is read as a 64-bit float)")
+    return int(token)
 
 
 def _no_duplicates(pairs):
@@ -21,6 +32,22 @@ def _no_duplicates(pairs):
     return out
 
 
+def _whole_body_within_limit() -> None:
+    """A body without Content-Length (Transfer-Encoding: chunked) over the limit is 413, as a
+    sized one is: werkzeug stops reading it at the limit, and what it read must not pass for
+    the whole body. Runs before any view reads the body (fingerprints, JSON)."""
+    if request.method not in ("POST", "PUT", "PATCH") or request.content_length is not None:
+        return
+    limit = current_app.config["MAX_CONTENT_LENGTH"]
+    raw = request.get_data()  # cached: views read the same bytes
+    if limit is not None and len(raw) >= limit and request.environ["wsgi.input"].read(1):
+        raise too_large(limit)
+
+
+def install(app: Flask) -> None:
+    app.before_request(_whole_body_within_limit)
+
+
 def read_json_object() -> dict:
     mimetype = request.mimetype or ""
     if mimetype != "application/json" and not mimetype.endswith("+json"):
@@ -29,7 +56,7 @@ def read_json_object() -> dict:
     raw = request.get_data()  # MAX_CONTENT_LENGTH is enforced here (413); cached for fingerprints
     try:
         text = raw.decode("utf-8")
-        body = json.loads(text, parse_constant=_no_constants, object_pairs_hook=_no_duplicates)
+        body = json.loads(text, parse_constant=_no_constants, parse_int=_integer, object_pairs_hook=_no_duplicates)
     except UnicodeDecodeError:
         raise ApiProblem(400, "Malformed JSON", "the body is not UTF-8 text", kind="malformed-json")
     except json.JSONDecodeError as e:

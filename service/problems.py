@@ -7,7 +7,7 @@ import logging
 from flask import Flask, Response, request
 from marshmallow import ValidationError
 from redis.exceptions import RedisError
-from werkzeug.exceptions import HTTPException
+from werkzeug.exceptions import HTTPException, RequestEntityTooLarge
 
 from schemas.problem import PROBLEM_MEDIA_TYPE, pointers, problem
 
@@ -22,6 +22,13 @@ class ApiProblem(Exception):
         self.status, self.title, self.detail = status, title, detail
         self.headers = headers or {}
         self.extra = extra
+
+
+def too_large(limit: int) -> ApiProblem:
+    return ApiProblem(413, "Content Too Large",
+                      f"the request body is larger than the limit of {limit} bytes "
+                      f"({limit / 1048576:g} MiB); split a large sweep into several batches",
+                      kind="body-too-large", limit_bytes=limit)
 
 
 def problem_response(status: int, title: str, detail: str = "", headers: dict | None = None,
@@ -44,6 +51,12 @@ def install(app: Flask) -> None:
         return problem_response(422, "Invalid job spec",
                                 f"{len(errors)} problem(s) in the request body; see errors",
                                 kind="invalid-spec", errors=errors)
+
+    @app.errorhandler(RequestEntityTooLarge)
+    def _too_large(e: RequestEntityTooLarge):
+        limit = app.config.get("MAX_CONTENT_LENGTH") or 0
+        p = too_large(limit)
+        return problem_response(p.status, p.title, p.detail, **p.extra)
 
     @app.errorhandler(HTTPException)
     def _http(e: HTTPException):

@@ -1,16 +1,21 @@
-"""A live stack for tests: gunicorn API and Celery worker processes on a given Redis."""
+"""A live stack for tests: nginx in front of the gunicorn API (as `stifflane up` runs it),
+and Celery worker processes, on a given Redis."""
 from __future__ import annotations
 
 import os
+import shutil
 import signal
 import subprocess
 import sys
+import tempfile
 import time
 import uuid
+from pathlib import Path
 
 import requests
 
-from cli.main import api_command, worker_command
+from cli import front
+from cli.main import worker_command
 from tests.conftest import ROOT, free_port
 
 
@@ -26,7 +31,11 @@ class Stack:
         self.base = f"http://127.0.0.1:{self.port}"
         self.logs = ROOT / "var" / "test-logs"
         self.logs.mkdir(parents=True, exist_ok=True)
-        self.api = self._spawn("api", api_command("127.0.0.1", self.port, workers=1))
+        if front.nginx_binary() is None:
+            raise RuntimeError(front.INSTALL_HINT)
+        self.front_dir = Path(tempfile.mkdtemp(prefix="stifflane-front-"))  # short: a unix socket lives there
+        (_, self.api), (_, self.front) = front.start_api("127.0.0.1", self.port, self._spawn, workers=1,
+                                                        front_dir=self.front_dir)
         self.worker = None
         self._wait_api()
         self.start_worker()
@@ -62,13 +71,14 @@ class Stack:
         self.worker.wait(10)
 
     def stop(self):
-        for p in (self.worker, self.api):
+        for p in (self.worker, self.front, self.api):
             if p and p.poll() is None:
                 os.killpg(p.pid, signal.SIGTERM)
                 try:
                     p.wait(15)
                 except subprocess.TimeoutExpired:
                     os.killpg(p.pid, signal.SIGKILL)
+        shutil.rmtree(self.front_dir, ignore_errors=True)
 
     # --- client helpers
     def submit(self, spec: dict) -> str:

@@ -95,6 +95,21 @@
     }
   }
 
+  // The pages' Content-Security-Policy forbids style attributes; markup built by the scripts
+  // carries data-w (a bar's width in %) and data-bg (a colour) instead, applied here through
+  // the style object, which the policy allows.
+  function paint(root) {
+    if (!root.querySelectorAll) return;
+    const els = Array.from(root.querySelectorAll('[data-w],[data-bg]'));
+    if (root.matches && root.matches('[data-w],[data-bg]')) els.push(root);
+    for (const el of els) {
+      if (el.dataset.w !== undefined) el.style.width = el.dataset.w + '%';
+      if (el.dataset.bg !== undefined) el.style.background = el.dataset.bg;
+    }
+  }
+  new MutationObserver(records => records.forEach(r => r.addedNodes.forEach(paint)))
+    .observe(document.documentElement, { childList: true, subtree: true });
+
   window.SL = { api, paused, download, esc, num, duration, elapsed, stateBadge, problemText, key };
   document.addEventListener('DOMContentLoaded', setupHeader);
 })();

@@ -101,7 +101,7 @@
   function drawStats(stats) {
     const rows = Object.entries(stats.summaries || {});
     if (!rows.length) return;
-    $('stats').innerHTML = `<div style="overflow-x:auto"><table class="data compact"><thead><tr><th>summary</th>
+    $('stats').innerHTML = `<div class="scroll-x"><table class="data compact"><thead><tr><th>summary</th>
       <th class="num">mean ± std</th><th class="num">5% – 95%</th></tr></thead><tbody>` + rows.map(([n, s]) =>
       `<tr><td class="mono">${esc(n)}</td><td class="num">${num(s.mean, 3)}<br><span class="muted">± ${num(s.std, 2)}</span></td>
       <td class="num">${num(s.q05, 3)}<br><span class="muted">${num(s.q95, 3)}</span></td></tr>`).join('') + '</tbody></table></div>' +

@@ -9,7 +9,7 @@
     return `<tr data-id="${esc(b.id)}">
       <td><a href="/batches/${encodeURIComponent(b.id)}">${esc(b.title || 'untitled')}</a><div class="muted mono">${esc(b.id)}</div></td>
       <td>${stateBadge(b.state)}</td>
-      <td><div class="bar" title="${pct}%"><i style="width:${pct}%"></i></div></td>
+      <td><div class="bar" title="${pct}%"><i data-w="${pct}"></i></div></td>
       <td class="num">${num(p.total)}</td><td class="num">${num(p.failed)}</td>
       <td class="num">${p.members_per_second ? num(p.members_per_second, 3) + '/s' : '—'}</td>
       <td class="num">${['queued', 'running'].includes(b.state) ? duration(p.eta_seconds) : '—'}</td>

@@ -93,7 +93,7 @@
     const all = states.map(n => ['state', n]).concat(derived.map(n => ['derived', n]));
     document.getElementById('pick').innerHTML = all.map(([kind, n], i) =>
       `<label title="${kind}"><input type="checkbox" value="${esc(n)}" ${picked.has(n) ? 'checked' : ''}>` +
-      `<span class="swatch" style="background:${P.PALETTE[i % P.PALETTE.length]}"></span>${esc(n)}` +
+      `<span class="swatch" data-bg="${P.PALETTE[i % P.PALETTE.length]}"></span>${esc(n)}` +
       `${kind === 'derived' ? ' <span class="muted">(derived)</span>' : ''}</label>`).join('');
     document.querySelectorAll('#pick input').forEach(cb => cb.onchange = () => {
       cb.checked ? picked.add(cb.value) : picked.delete(cb.value);
@@ -133,7 +133,7 @@
       xlabel: 't', ylabel: 'step size', bands: P.methodBands(hist, tEnd), markers: switchMarkers() });
     const used = Array.from(new Set(hist.method));
     document.getElementById('method-legend').innerHTML = used.map(m =>
-      `<span><i style="background:${P.METHOD_COLORS[m] || '#999'}"></i>${esc(m)} phase</span>`).join('') +
+      `<span><i data-bg="${P.METHOD_COLORS[m] || '#999'}"></i>${esc(m)} phase</span>`).join('') +
       '<span class="muted">dashed vertical lines: method switches</span>';
     const need = rep.explicit_steps_needed, took = rep.accepted_steps;
     document.getElementById('steps-note').textContent = need != null

@@ -19,7 +19,7 @@
     return `<tr data-id="${esc(j.id)}">
       <td><a href="/jobs/${encodeURIComponent(j.id)}">${esc(j.label || 'untitled')}</a><div class="muted mono">${esc(j.id)}</div></td>
       <td>${stateBadge(j.state)}</td>
-      <td><div class="bar" title="${pct}%"><i style="width:${pct}%"></i></div></td>
+      <td><div class="bar" title="${pct}%"><i data-w="${pct}"></i></div></td>
       <td class="num">${duration(elapsed(j))}</td>
       <td>${esc(owner(j))}</td>
       <td>${esc(j.method || '')}</td>
