@@ -294,7 +294,7 @@ def _arrhenius_k(r, spec_a, path):
     n = r.number(spec_a.get("n"), (*path, "n"), 0.0)
     ea = r.number(spec_a.get("Ea"), (*path, "Ea"), 0.0)
     unit = spec_a.get("Ea_unit", "J/mol")
-    if unit not in EA_UNITS:
+    if not isinstance(unit, str) or unit not in EA_UNITS:
         r.issue((*path, "Ea_unit"), "must be one of " + ", ".join(EA_UNITS))
         return None
     if A is None or T is None or n is None or ea is None:

@@ -242,7 +242,7 @@ def _read_events(r: _Reader, model):
             r.issue((*path, "when"), "is required: an expression whose zero crossing is the event")
         node = r.expr(ev.get("when"), (*path, "when")) if "when" in ev else None
         direction = ev.get("direction", "both")
-        if direction not in DIRECTIONS:
+        if not isinstance(direction, str) or direction not in DIRECTIONS:
             r.issue((*path, "direction"), "must be 'rising', 'falling' or 'both'")
             direction = "both"
         stop = r.flag(ev.get("stop"), (*path, "stop"))

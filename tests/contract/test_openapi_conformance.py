@@ -39,7 +39,7 @@ def contract_app(redis_server):
     tag = uuid.uuid4().hex[:8]
     settings = Settings(redis_url=redis_server.url, key_prefix=f"c{tag}", auth_mode="keys",
                         interactive_queue=f"stifflane.contract.{tag}", batch_queue=f"stifflane.contract.{tag}.b",
-                        rate_limit=RATE_LIMIT)
+                        rate_limit=RATE_LIMIT, address_rate_limit=RATE_LIMIT)
     app = create_app(settings)
     store = app.extensions["stifflane"].store
     _, key = accounts.create_key(store.r, store.keys, "contract", "admin", label="contract tests")

@@ -239,3 +239,12 @@ def test_a_foreign_arrow_gets_one_error_with_the_arrow_we_meant(arrow, meant):
 def test_a_name_one_character_off_gets_a_suggestion():
     issues = issues_at({"states": {"A": 1.0, "H2": 0.0}, "ddt": {"A": "-H3*A"}})
     assert issues[("ddt", "A")].suggestion == "did you mean 'H2'?"
+
+
+def test_objects_where_a_word_is_expected_are_issues_not_crashes():
+    # found by the contract run: an object as an event direction or an Ea unit raised TypeError
+    model = {"states": {"a": 1.0, "b": 0.0},
+             "reactions": [{"equation": "a -> b", "arrhenius": {"A": 1.0, "T": 300.0, "Ea_unit": {}}}],
+             "events": [{"name": "half", "when": "a - 0.5", "direction": {"x": 1}}]}
+    paths = {i.path for i in check_model(model)}
+    assert ("reactions", 0, "arrhenius", "Ea_unit") in paths and ("events", 0, "direction") in paths
