@@ -86,13 +86,16 @@ def install(app: Flask) -> None:
 
     @app.before_request
     def _documented_query_only():
-        if not request.args or request.url_rule is None:
+        if not request.query_string or request.url_rule is None:
             return
         method = "GET" if request.method == "HEAD" else request.method
         known = _query_parameters(app).get((FlaskPlugin.flaskpath2openapi(request.url_rule.rule), method))
         if known is None:
             return
-        unknown = sorted(set(request.args) - known)
+        from urllib.parse import parse_qsl
+        raw = parse_qsl(request.query_string.decode("latin-1"), keep_blank_values=True)
+        names = set(request.args) | {name for name, _ in raw}  # blank names count too
+        unknown = sorted(names - known)
         if unknown:
             takes = ", ".join(sorted(known)) or "none"
             raise ApiProblem(400, "Bad Request", f"unknown query parameter(s) {', '.join(map(repr, unknown))}; "
