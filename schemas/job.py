@@ -62,6 +62,19 @@ class StrictBoolean(fields.Boolean):
         return value
 
 
+def numbers_by_name(value: dict, number: fields.Field) -> dict:
+    """{name: number} read with ``number``; every bad entry reported under its own name."""
+    errors, out = {}, {}
+    for name, v in value.items():
+        try:
+            out[name] = number.deserialize(v)
+        except ValidationError as e:
+            errors[name] = e.messages
+    if errors:
+        raise ValidationError(errors)
+    return out
+
+
 class Overrides(fields.Dict):
     """{name: finite number}; an error points at the name (/parameters/k), not at marshmallow's
     inner /parameters/k/value."""
@@ -72,15 +85,7 @@ class Overrides(fields.Dict):
     def _deserialize(self, value, attr, data, **kwargs):
         if not isinstance(value, dict):
             raise ValidationError("must be an object of name: number")
-        number, errors, out = FiniteFloat(), {}, {}
-        for name, v in value.items():
-            try:
-                out[name] = number.deserialize(v)
-            except ValidationError as e:
-                errors[name] = e.messages
-        if errors:
-            raise ValidationError(errors)
-        return out
+        return numbers_by_name(value, FiniteFloat())
 
 
 # Below this, the error weights atol + rtol|y| of states near zero overflow the error norms of
@@ -94,15 +99,7 @@ class AbsoluteTolerance(fields.Field):
     def _deserialize(self, value, attr, data, **kwargs):
         number = FiniteFloat(validate=validate.Range(min=MIN_ATOL, error=f"must be at least {MIN_ATOL:g}"))
         if isinstance(value, dict):
-            errors, out = {}, {}
-            for name, v in value.items():
-                try:
-                    out[name] = number.deserialize(v)
-                except ValidationError as e:
-                    errors[name] = e.messages
-            if errors:
-                raise ValidationError(errors)
-            return out
+            return numbers_by_name(value, number)
         try:
             return number.deserialize(value)
         except ValidationError:
