@@ -9,7 +9,8 @@ parameter the operation does not take, see :func:`install`), and on every secure
 with ``security: []`` is public.
 
 The document is also the list of query parameters each operation takes: :func:`install`
-refuses any other (400 naming it), so a misspelt ``?limt=5`` is not silently ignored.
+refuses any other (400 naming it), so a misspelt ``?limt=5`` is not silently ignored, and a
+parameter given twice (``?limit=5&limit=500``: which one holds?) is refused too.
 """
 from __future__ import annotations
 
@@ -96,6 +97,12 @@ def install(app: Flask) -> None:
         raw = parse_qsl(request.query_string.decode("latin-1"), keep_blank_values=True)
         names = set(request.args) | {name for name, _ in raw}  # blank names count too
         unknown = sorted(names - known)
+        repeated = sorted({name for name, _ in raw if name in known and sum(n == name for n, _ in raw) > 1})
+        if repeated and not unknown:  # every documented parameter is a single value
+            raise ApiProblem(400, "Bad Request", f"query parameter(s) {', '.join(map(repr, repeated))} "
+                             "given more than once; give each once",
+                             errors=[{"pointer": f"/query/{name}", "detail": "given more than once"}
+                                     for name in repeated])
         if unknown:
             takes = ", ".join(sorted(known)) or "none"
             raise ApiProblem(400, "Bad Request", f"unknown query parameter(s) {', '.join(map(repr, unknown))}; "

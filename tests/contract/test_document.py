@@ -170,6 +170,14 @@ def test_query_parameters_the_document_does_not_list_are_refused(secured):
     assert c.get("/v1/jobs?api_key=x", headers=auth).get_json()["type"].endswith("/key-in-url")
 
 
+def test_a_query_parameter_given_twice_is_refused(secured):
+    """?limit=1&limit=500 was answered with the first value (common practice: refuse ambiguity)."""
+    app, auth = secured
+    r = app.test_client().get("/v1/jobs?limit=1&state=queued&limit=500", headers=auth)
+    assert r.status_code == 400 and r.get_json()["errors"] == [
+        {"pointer": "/query/limit", "detail": "given more than once"}]
+
+
 def test_the_models_limits_in_the_document_are_the_engines():
     from engine.language import names, reactions
     from engine.language.limits import DEFAULT_LIMITS as L
