@@ -10,7 +10,8 @@ import requests
 pytestmark = pytest.mark.e2e
 
 # a harmonic oscillator at tight tolerance over a long span (minutes here), output every
-# 10 time units: it runs until cancelled. Oracle: u = cos t, v = -sin t.
+# 10 time units: it runs until cancelled. Oracle: u = cos t, v = -sin t (to 1e-4: the global
+# error grows along the orbit, and how far the run gets depends on the machine).
 LONG = {
     "label": "long oscillator (partial results)",
     "model": {"states": {"u": {"initial": 1.0, "unit": "m"}, "v": {"initial": 0.0, "unit": "m/s"}},
@@ -40,7 +41,7 @@ def test_a_running_job_serves_its_live_snapshot_and_a_cancelled_one_its_partial_
         assert body["units"] == {"u": "m", "v": "m/s"} and body["report"]["accepted_steps"] > 0
         t = np.array(body["times"])
         assert len(t) >= 1 and t.max() <= body["t_reached"]
-        np.testing.assert_allclose(body["states"]["u"], np.cos(t), atol=1e-6)
+        np.testing.assert_allclose(body["states"]["u"], np.cos(t), atol=1e-4)
     finally:
         requests.post(f"{stack.base}/v1/jobs/{job_id}/cancel", timeout=10)
     view = stack.wait(job_id, timeout=60)
@@ -54,7 +55,7 @@ def test_a_running_job_serves_its_live_snapshot_and_a_cancelled_one_its_partial_
     assert view["progress"] == pytest.approx(body["t_reached"] / 5e5, abs=1e-4)
     t = np.array(body["times"])
     assert len(t) == int(body["t_reached"] // 10) + 1  # every output time reached, none thinned
-    np.testing.assert_allclose(body["states"]["u"], np.cos(t), atol=1e-6)
+    np.testing.assert_allclose(body["states"]["u"], np.cos(t), atol=1e-4)
     assert body["report"]["step_history"]["t"] and body["report"]["accepted_steps"] > 0
     csv = get_result(stack, job_id, "csv").text.splitlines()
     assert csv[1].startswith("# partial: solved up to t = ") and csv[1].endswith("of 500000; cancelled")
