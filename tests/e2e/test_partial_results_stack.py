@@ -9,7 +9,7 @@ import requests
 
 pytestmark = pytest.mark.e2e
 
-# a harmonic oscillator at tight tolerance over a long span (minutes here), output every
+# a harmonic oscillator at tight tolerance over a long span (about a minute here), output every
 # 10 time units: it runs until cancelled. Oracle: u = cos t, v = -sin t (to 1e-4: the global
 # error grows along the orbit, and how far the run gets depends on the machine).
 LONG = {

@@ -27,7 +27,7 @@ BLOW_UP = {
     "span": [0.0, 2.0], "output": {"count": 21},
 }
 
-# a harmonic oscillator at tight tolerance over a long span (minutes here): runs until
+# a harmonic oscillator at tight tolerance over a long span (about a minute here): runs until
 # cancelled, passing an output time (every 10 time units) every few thousand steps
 LONG = {
     "label": "long oscillator",
