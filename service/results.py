@@ -53,9 +53,16 @@ def unit_list(meta: dict, names_key: str) -> list[str]:
     return [units.get(n, "") for n in meta[names_key]]
 
 
-def as_json(job_id: str, blob: bytes, state: str, outcome: str | None = None,
+def _state_of(meta: dict) -> str:
+    """The state a blob's outcome implies (for callers that do not pass the job's own)."""
+    outcome = meta.get("outcome")
+    return {None: "running", "succeeded": "succeeded", "cancelled": "cancelled"}.get(outcome, "failed")
+
+
+def as_json(job_id: str, blob: bytes, state: str | None = None, outcome: str | None = None,
             message: str | None = None) -> dict:
     meta, arrays = decode(blob, outcome, message)
+    state = state or _state_of(meta)
     t, y, aux = arrays["t"], arrays["y"], arrays["aux"]
     finite = result_blob.json_safe  # JSON has no NaN or Infinity: those become null
     return ResultSchema().dump({
