@@ -8,23 +8,54 @@ from pathlib import Path
 from cli.common import JOB_NOT_SUCCEEDED, OK, add_connection_args, command, make_client, print_caution
 
 
+def _ending(view: dict) -> str:
+    from cli.common import client_module
+
+    return client_module().ending(view)
+
+
 def _print_view(view: dict) -> None:
     line = f"{view['id']}  {view['state']}"
-    if view.get("outcome"):
-        line += f"  {view['outcome']}: {view.get('message') or ''}"
+    if view.get("outcome") or view.get("message"):
+        line += f"  {_ending(view)}"
     print(line)
+
+
+def partial_note(view: dict) -> str:
+    """Where a failed, cancelled or running job's partial result ends, in words ("" if none)."""
+    reached = (view.get("digest") or {}).get("t_reached")
+    if view.get("state") == "running":
+        return f"the job is still running ({100 * (view.get('progress') or 0):.0f}% of the span so far)"
+    if reached is None:
+        return ""
+    return f"its partial result, up to t = {reached:.6g} ({100 * (view.get('progress') or 0):.0f}% of the span), is kept"
 
 
 def _finish(client, view: dict, out: str | None, fmt: str | None) -> int:
     if view["state"] != "succeeded":
-        print(f"job {view['state']}: {view.get('outcome') or ''} {view.get('message') or ''}".rstrip(),
-              file=sys.stderr)
+        print(_ending(view), file=sys.stderr)
+        note = partial_note(view)
+        if note and out:
+            path = client.download(view["id"], out, fmt)
+            print(f"{note}: saved to {path}", file=sys.stderr)
+            print_caution()
+        elif note:
+            print(f"{note}: stifflane result {view['id']}", file=sys.stderr)
         return JOB_NOT_SUCCEEDED
     if out:
         path = client.download(view["id"], out, fmt)
         print(f"result saved to {path}", file=sys.stderr)
         print_caution()
     return OK
+
+
+def _partial_status(client, job_id: str) -> int:
+    """Say so on stderr when the result just handed out is partial: exit code 1, else 0."""
+    view = client.job(job_id).view
+    if view.get("state") == "succeeded":
+        return OK
+    print(f"partial result: {_ending(view)}", file=sys.stderr)
+    return JOB_NOT_SUCCEEDED
 
 
 def cmd_submit(args) -> int:
@@ -61,8 +92,9 @@ def cmd_result(args) -> int:
     if args.out:
         path = client.download(args.job_id, args.out, args.format)
         print(f"result saved to {path}", file=sys.stderr)
+        status = _partial_status(client, args.job_id)
         print_caution()
-        return OK
+        return status
     fmt = args.format or "csv"
     data = client.result_bytes(args.job_id, fmt)
     if fmt == "npz" and sys.stdout.isatty():
@@ -70,8 +102,9 @@ def cmd_result(args) -> int:
         return 2
     sys.stdout.buffer.write(data)
     sys.stdout.flush()
+    status = _partial_status(client, args.job_id)
     print_caution()
-    return OK
+    return status
 
 
 def cmd_list(args) -> int:
@@ -98,7 +131,8 @@ def cmd_cancel(args) -> int:
 def register(sub) -> None:
     p = sub.add_parser("submit", help="submit a job spec (JSON file, or - for stdin)",
                        description="Submit a job spec. Prints the job id; --wait watches it with a "
-                                   "progress bar, -o saves the result when it has succeeded.")
+                                   "progress bar, -o saves the result when it ends (a failed or cancelled "
+                                   "job's partial result too, with exit code 1).")
     p.add_argument("spec", help="path of a job spec JSON file, or - to read stdin")
     p.add_argument("--label", help="replace the spec's label")
     p.add_argument("--wait", action="store_true", help="wait for the job to finish")
@@ -114,7 +148,7 @@ def register(sub) -> None:
     p = sub.add_parser("watch", help="follow a job with a progress bar until it ends",
                        description="Follow a job until it succeeds, fails or is cancelled.")
     p.add_argument("job_id")
-    p.add_argument("-o", "--out", help="save the result here when it has succeeded")
+    p.add_argument("-o", "--out", help="save the result here when the job ends (partial if it failed)")
     p.add_argument("--format", choices=("csv", "json", "npz"))
     p.add_argument("--timeout", type=float, help="give up after this many seconds (exit code 7)")
     p.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
@@ -123,8 +157,10 @@ def register(sub) -> None:
   stifflane watch 0661a...e7b -o result.npz""")
 
     p = sub.add_parser("result", help="fetch a job's result (CSV to stdout, or to a file)",
-                       description="Fetch a succeeded job's result: CSV on stdout by default; with "
-                                   "-o the format follows the file suffix (.csv, .json, .npz).")
+                       description="Fetch a job's result: CSV on stdout by default; with -o the format "
+                                   "follows the file suffix (.csv, .json, .npz). A failed, cancelled or "
+                                   "running job gives what its run has computed so far, flagged partial "
+                                   "(exit code 1, and why on stderr).")
     p.add_argument("job_id")
     p.add_argument("-o", "--out", help="write to this file instead of stdout")
     p.add_argument("--format", choices=("csv", "json", "npz"))

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import json
 
-from cli.common import OK, add_connection_args, command, make_client
+from cli.common import JOB_NOT_SUCCEEDED, OK, add_connection_args, command, make_client
 
 
 def _num(v) -> str:
@@ -60,10 +60,65 @@ def _tier(mc: dict | None) -> str | None:
     return f"interpreter ({mc.get('reason', '')})"
 
 
+MAX_EVENT_ROWS = 50   # events listed in full; the rest are counted
+MAX_EVENT_COLUMNS = 8  # states shown as columns; more go into one "name=value" column
+
+
+def _sentence(text: str) -> str:
+    text = (text or "").strip()
+    return text if not text or text[-1] in ".!?" else text + "."
+
+
+def _status(result: dict) -> list[str]:
+    """How the run ended and whether the result is whole, in plain sentences."""
+    state, outcome = result.get("state"), result.get("outcome")
+    lines = []
+    if state:
+        lines.append(f"state: {state}" + (f" (outcome {outcome})" if outcome and outcome != state else ""))
+    elif outcome:
+        lines.append(f"outcome: {outcome}")
+    if result.get("message"):
+        lines.append(_sentence(result["message"][:1].upper() + result["message"][1:]))
+    if result.get("partial"):
+        reached, end = result.get("t_reached"), result.get("t_end")
+        span = f"t = {_num(reached)}" + (f" of {_num(end)}" if end is not None else "")
+        rows = len(result.get("times") or [])
+        still = "so far, while the job runs" if state == "running" else "before the run stopped"
+        lines.append(f"Partial result: solved up to {span} {still} ({rows} output times).")
+    return lines
+
+
+def _events(result: dict) -> str | None:
+    events = result.get("events") or []
+    if not events:
+        return None
+    names = list(events[0].get("states") or {})
+    units = result.get("units") or {}
+    labels = [f"{n} [{units[n]}]" if units.get(n) else n for n in names]
+    shown = events[:MAX_EVENT_ROWS]
+    if len(names) <= MAX_EVENT_COLUMNS:
+        rows = [[e.get("name", ""), e.get("t"), *[(e.get("states") or {}).get(n) for n in names]] for e in shown]
+        text = table(rows, ["event", "t", *labels])
+    else:
+        rows = [[e.get("name", ""), e.get("t"),
+                 " ".join(f"{n}={_num(v)}" for n, v in (e.get("states") or {}).items())] for e in shown]
+        text = table(rows, ["event", "t", "states"])
+    if len(events) > len(shown):
+        text += f"\n... and {len(events) - len(shown)} more (stifflane result ID --format json lists them all)"
+    return "\nEvents\n" + text
+
+
+def _units(result: dict) -> str | None:
+    units = result.get("units") or {}
+    if not units:
+        return None
+    return "\nUnits\n" + table([[name, unit] for name, unit in units.items()], ["name", "unit"])
+
+
 def format_report(result: dict) -> str:
     """The stiffness report of a result JSON as readable text."""
     rep = result.get("report") or {}
-    parts = [f"outcome: {result.get('outcome', '-')}: {result.get('message', '')}"]
+    parts = _status(result)
     counters = [("accepted steps", rep.get("accepted_steps")), ("rejected steps", rep.get("rejected_steps")),
                 ("rhs evaluations", rep.get("rhs_evaluations")),
                 ("Jacobian evaluations", rep.get("jacobian_evaluations")),
@@ -96,6 +151,9 @@ def format_report(result: dict) -> str:
                 for s in samples]
         parts.append("\nStiffness along the run\n" + table(rows, ["t", "spectral radius", "stiffness ratio",
                                                                   "explicit step"]))
+    for extra in (_events(result), _units(result)):
+        if extra:
+            parts.append(extra)
     for w in rep.get("warnings") or []:
         parts.append(f"warning: {w}")
     if result.get("caution"):
@@ -110,13 +168,16 @@ def cmd_report(args) -> int:
         print(json.dumps(body.get("report") or {}, indent=2))
     else:
         print(format_report(body))
-    return OK
+    return JOB_NOT_SUCCEEDED if body.get("partial") else OK
 
 
 def register(sub) -> None:
     p = sub.add_parser("report", help="show a job's stiffness report as tables",
-                       description="Show the solver's report of a succeeded job: work counters, "
-                                   "steps per method, method switches and stiffness samples.")
+                       description="Show the solver's report of a job: how it ended, work counters, "
+                                   "steps per method, method switches, stiffness samples, events (name, "
+                                   "time, state values) and units. A failed, cancelled or running job's "
+                                   "report covers the run so far and says the result is partial (exit "
+                                   "code 1).")
     p.add_argument("job_id")
     p.add_argument("--json", action="store_true", help="print the report as JSON instead")
     add_connection_args(p)

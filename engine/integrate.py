@@ -21,7 +21,7 @@ from engine.integrators.workspace import give_back, take_run
 from engine.kernels import native, vm
 from engine.diagnostics.messages import STIFF_RATIO, Evidence, diagnosis, grown_states, message
 from engine.diagnostics import stiffness
-from engine.diagnostics.report import aux_at_outputs, build_report
+from engine.diagnostics.report import _history, aux_at_outputs, build_report
 from engine.integrators.switching import P_BOUNDARY, SwitchPolicy
 from engine.integrators.tableaux import BDF, DORMAND_PRINCE, METHOD_NAMES, RADAU_IIA, ROSENBROCK
 
@@ -96,6 +96,53 @@ class Solution:
 Monitor = Callable[[float], bool]
 
 
+class Reached:
+    """What a running integration has reached so far, handed to ``integrate(live=...)``.
+
+    Valid only during that call (the run's arrays change as soon as it returns); every
+    method copies, and nothing is read unless asked, so an unused view costs nothing."""
+
+    __slots__ = ("_kernel", "_run")
+
+    def __init__(self, kernel, run):
+        self._kernel, self._run = kernel, run
+
+    @property
+    def t(self) -> float:
+        return float(self._run.fs[S.F_T])
+
+    @property
+    def method(self) -> str:
+        return METHOD_NAMES[int(self._run.iw[S.I_METHOD])]
+
+    @property
+    def accepted_steps(self) -> int:
+        return int(self._run.iw[S.I_ACCEPTED])
+
+    def outputs(self, max_rows: int = 2000) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(t, y, derived) at the output times reached, thinned evenly to at most
+        ``max_rows`` rows (the first and the last kept)."""
+        run, kernel = self._run, self._kernel
+        k = int(run.iw[S.I_IOUT])
+        rows = np.unique(np.linspace(0, k - 1, max(int(max_rows), 2)).round().astype(np.int64)) \
+            if k > max_rows else slice(0, k)
+        t, y = run.t_out[rows].copy(), run.y_out[rows].copy()
+        aux = np.empty((len(t), kernel.n_aux))
+        if kernel.n_aux and len(t):
+            aux_at_outputs(kernel, t, y, run.p, run.regs.copy(), aux)
+        return t, y, aux
+
+    def events(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(t, event index, states) of the events recorded so far."""
+        run = self._run
+        ne = min(int(run.iw[S.I_NEV_LOG]), len(run.ev_t))
+        return run.ev_t[:ne].copy(), run.ev_i[:ne].copy(), run.ev_y[:ne].copy()
+
+    def step_history(self) -> Optional[dict]:
+        """The step history so far, in the report's shape (None without full diagnostics)."""
+        return _history(self._run) if len(self._run.hist) else None
+
+
 def _check(kernel, y0, t0, t1, t_out, o):
     if o.method not in METHODS:
         raise ValueError(f"unknown method '{o.method}'; choose one of {', '.join(METHODS)}")
@@ -128,8 +175,12 @@ def integrate(
     options: SolverOptions = SolverOptions(),
     monitor: Optional[Monitor] = None,
     conservation: Optional[np.ndarray] = None,
+    live: Optional[Callable[[Reached], None]] = None,
 ) -> Solution:
-    """Integrate y' = f(t, y; p) over t_span; states at ``t_out`` (inside the span)."""
+    """Integrate y' = f(t, y; p) over t_span; states at ``t_out`` (inside the span).
+
+    ``live(reached)``, if given, is called before each monitor call (at most every 0.5 s)
+    with a :class:`Reached` view of the outputs reached so far (for partial results)."""
     started = time.perf_counter()
     o = options
     t0, t1 = float(t_span[0]), float(t_span[1])
@@ -148,7 +199,7 @@ def integrate(
         stop = NON_FINITE
     tier_up = None
     if stop is None:
-        stop, kernel, tier_up = _loop(kernel, run, monitor, o, secs, started)
+        stop, kernel, tier_up = _loop(kernel, run, monitor, o, secs, started, live)
     sol = _solution(kernel, run, stop, o, conservation, secs, started)
     sol.machine_code_from = tier_up
     give_back(kernel, run, o)
@@ -168,7 +219,7 @@ def _tier_up(kernel, run, elapsed):
                           "seconds": built.seconds}
 
 
-def _loop(kernel, run, monitor, o, secs, started):
+def _loop(kernel, run, monitor, o, secs, started, live=None):
     """Advance in chunks until the run ends; returns (stop, kernel, tier-up record)."""
     budget = 4 if run.sparse else 2000
     last_beat = started
@@ -196,9 +247,11 @@ def _loop(kernel, run, monitor, o, secs, started):
             now = time.perf_counter()
         if now - started > o.max_wall_seconds:
             return TIME_LIMIT, kernel, tiered
-        if monitor is not None and now - last_beat >= 0.5:
+        if (monitor is not None or live is not None) and now - last_beat >= 0.5:
             last_beat = now
-            if monitor((fs[S.F_T] - t0) / (t1 - t0)):
+            if live is not None:
+                live(Reached(kernel, run))
+            if monitor is not None and monitor((fs[S.F_T] - t0) / (t1 - t0)):
                 return CANCELLED, kernel, tiered
 
 

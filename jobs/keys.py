@@ -4,6 +4,7 @@
 |------------------------------|--------|-----------------------------------------|----------------|
 | {p}:job:{id}                 | hash   | job record (state, rev, times, spec...) | result TTL     |
 | {p}:result:{id}              | string | compressed result blob (jobs/blob.py)   | result TTL     |
+| {p}:live:{id}                | string | running job's partial result (blob, rows thinned), rewritten every ~2 s; deleted at finish | result TTL |
 | {p}:index:state:{state}      | zset   | job ids by state (all owners)           | pruned lazily  |
 | {p}:owner:{o}:all            | zset   | one owner's job ids                     | pruned lazily  |
 | {p}:owner:{o}:state:{state}  | zset   | one owner's job ids by state            | pruned lazily  |
@@ -70,6 +71,10 @@ class Keys:
 
     def result(self, job_id: str) -> str:
         return f"{self.prefix}:result:{job_id}"
+
+    def live(self, job_id: str) -> str:
+        """A running job's latest partial result (worker.run_job.LiveResult writes it)."""
+        return f"{self.prefix}:live:{job_id}"
 
     def owner_all(self, owner: str) -> str:
         return f"{self.prefix}:owner:{owner}:all"

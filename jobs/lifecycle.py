@@ -81,24 +81,42 @@ end
 return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
 """
 
-# KEYS[12]: result key. ARGV: id, attempt, state, outcome, message, summary, ttl, has_result, blob
+# KEYS[12]: result key, KEYS[13]: live (partial) result key.
+# ARGV: id, attempt, state, outcome, message, summary, ttl, has_result, blob, progress
+# (the fraction of the span reached; '' = keep the last heartbeat's).
 # Returns 1 when this call wrote the terminal state, 0 when fenced out. The lease is not
 # checked: a finish that arrives late (Redis was unreachable) still counts while no other
-# attempt has taken over, which is exactly the fence.
+# attempt has taken over, which is exactly the fence. The live snapshot goes: the result
+# (partial or whole) replaces it.
 FINISH = _MOVE + """
 local id, attempt, now = ARGV[1], ARGV[2], redis_now()
 if redis.call('HGET', KEYS[1], 'state') ~= 'running' then return 0 end
 if redis.call('HGET', KEYS[1], 'attempt') ~= attempt then return 0 end
 local ttl = tonumber(ARGV[7])
 if ARGV[8] == '1' then redis.call('SET', KEYS[12], ARGV[9], 'EX', ttl) end
+redis.call('DEL', KEYS[13])
 redis.call('HINCRBY', KEYS[1], 'writes', 1)  -- evidence for tests: exactly one terminal write
 redis.call('HSET', KEYS[1], 'state', ARGV[3], 'outcome', ARGV[4], 'message', ARGV[5],
   'summary', ARGV[6], 'finished', now)
-if ARGV[3] == 'succeeded' then redis.call('HSET', KEYS[1], 'progress', '1') end
+if ARGV[3] == 'succeeded' then
+  redis.call('HSET', KEYS[1], 'progress', '1')
+elseif ARGV[10] ~= '' then
+  redis.call('HSET', KEYS[1], 'progress', ARGV[10])  -- how far a failed or cancelled run got
+end
 redis.call('HDEL', KEYS[1], 'lease')
 redis.call('HINCRBY', KEYS[1], 'rev', 1)
 redis.call('EXPIRE', KEYS[1], ttl)
 move(id, 'running', ARGV[3])
+return 1
+"""
+
+# KEYS[1]: job hash, KEYS[2]: live result key. ARGV: attempt, ttl, blob.
+# A running attempt's partial result, written only while that attempt is current (a stale
+# or finished attempt writes nothing). Returns 1 when written.
+LIVE = """
+if redis.call('HGET', KEYS[1], 'state') ~= 'running' then return 0 end
+if redis.call('HGET', KEYS[1], 'attempt') ~= ARGV[1] then return 0 end
+redis.call('SET', KEYS[2], ARGV[3], 'EX', tonumber(ARGV[2]))
 return 1
 """
 

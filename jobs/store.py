@@ -89,6 +89,7 @@ class JobStore:
         self._heartbeat = script(lifecycle.HEARTBEAT)
         self._finish = script(lifecycle.FINISH)
         self._cancel = script(lifecycle.CANCEL)
+        self._live = script(lifecycle.LIVE)
         self._requeue = script(lifecycle.REQUEUE)
         self._stamp = script(lifecycle.STAMP)
         self._stranded = script(lifecycle.STRANDED)
@@ -160,6 +161,10 @@ class JobStore:
 
     def result_blob(self, job_id: str) -> Optional[bytes]:
         return self.r.get(self.keys.result(job_id))
+
+    def live_blob(self, job_id: str) -> Optional[bytes]:
+        """The partial result a running attempt wrote last (None before its first one)."""
+        return self.r.get(self.keys.live(job_id))
 
     def cancel(self, job_id: str) -> str:
         return _s(self._cancel(keys=self._script_keys(job_id), args=[job_id]))
@@ -242,14 +247,23 @@ class JobStore:
                   "" if progress is None else f"{progress:.4f}"]))
 
     def finish(self, job_id: str, attempt: int, state: str, outcome: str, message: str,
-               summary: dict, blob: Optional[bytes]) -> bool:
-        """Write the terminal state (and result) if ``attempt`` is still current."""
+               summary: dict, blob: Optional[bytes], progress: Optional[float] = None) -> bool:
+        """Write the terminal state (and result) if ``attempt`` is still current.
+
+        ``progress``: the fraction of the span the run reached (kept for a failed or
+        cancelled job; a succeeded one is at 1); None keeps the last heartbeat's."""
         assert state in TERMINAL
         return bool(self._finish(
-            keys=self._script_keys(job_id, self.keys.result(job_id)),
+            keys=self._script_keys(job_id, self.keys.result(job_id), self.keys.live(job_id)),
             args=[job_id, attempt, state, outcome, message,
                   json.dumps(summary, allow_nan=False), self.settings.result_ttl_seconds,
-                  "1" if blob is not None else "0", blob if blob is not None else b""]))
+                  "1" if blob is not None else "0", blob if blob is not None else b"",
+                  "" if progress is None else f"{min(max(progress, 0.0), 1.0):.4f}"]))
+
+    def write_live(self, job_id: str, attempt: int, blob: bytes) -> bool:
+        """Store a running attempt's partial result (only while that attempt is current)."""
+        return bool(self._live(keys=[self.keys.job(job_id), self.keys.live(job_id)],
+                               args=[attempt, self.settings.result_ttl_seconds, blob]))
 
     def expired_running(self) -> list[str]:
         """Ids of running jobs whose lease has expired (candidates for requeue)."""

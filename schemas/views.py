@@ -49,7 +49,17 @@ CAUTION_CSV_LINE = "# caution: " + CAUTION  # first line of every CSV export
 
 class ResultSchema(Schema):
     id = fields.String()
-    outcome = fields.String()
+    state = fields.String(metadata={
+        "description": "the job's state when the result was read: succeeded, failed, cancelled, or running "
+                       "(a live snapshot of the run so far)"})
+    partial = fields.Boolean(metadata={
+        "description": "false only for a succeeded run's whole result; true for a failed, cancelled or "
+                       "time-limited run (states up to the last output time reached) and for a running job"})
+    t_reached = fields.Float(allow_none=True, metadata={
+        "description": "the time the integration reached (the span's end for a succeeded run)"})
+    t_end = fields.Float(allow_none=True, metadata={"description": "the end of the job's span"})
+    outcome = fields.String(allow_none=True, metadata={
+        "description": "how the run ended (named outcome); null while it runs"})
     message = fields.String()
     times = fields.List(fields.Float())
     states = fields.Dict(keys=fields.String(), values=fields.List(fields.Float()))
@@ -58,6 +68,8 @@ class ResultSchema(Schema):
         "description": "event crossings located during the run: name, t, states there"})
     report = fields.Dict(metadata={"description": "full solver diagnostics (stiffness report)"})
     model = fields.Dict(metadata={"description": "prepared-model facts: names, stoichiometry, conservation laws"})
+    units = fields.Dict(keys=fields.String(), values=fields.String(), metadata={
+        "description": "the model's unit labels: state or parameter name -> unit (names without one are absent)"})
     caution = fields.String()
 
 

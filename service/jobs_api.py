@@ -212,15 +212,23 @@ def get_spec(job_id: str):
 
 @bp.get("/jobs/<job_id>/result")
 def get_result(job_id: str):
-    """A succeeded job's result as JSON, CSV or NumPy .npz.
+    """A job's result as JSON, CSV or NumPy .npz: whole once it has succeeded, partial otherwise.
     ---
     get:
-      summary: Read a succeeded job's result
+      summary: Read a job's result (partial for a failed, cancelled or running job)
+      description: >-
+        A succeeded job's result (`partial` false). A failed or cancelled job whose run reached
+        the solver keeps what it computed: states up to the last output time reached, with the
+        full report, `partial` true and `t_reached`. While a job runs, the worker's latest
+        snapshot (rows thinned to about 2000, rewritten every 2 s or so) is served with
+        `partial` true and `Cache-Control: no-store`. 409 `result-not-ready` before the first
+        snapshot (Retry-After), 409 `no-result` for a job that ended before the solver ran
+        (its message says why).
       operationId: getResult
       parameters: [JobId, Format]
       responses:
         200:
-          description: the result
+          description: the result, whole or partial
           content:
             application/json: {schema: Result}
             text/csv: {schema: {type: string}}
@@ -233,22 +241,49 @@ def get_result(job_id: str):
     fmt = results.negotiate(request.args.get("format"), request.accept_mimetypes)
     if fmt is None:
         raise ApiProblem(406, "Not Acceptable", "results come as json, csv or npz (format= or Accept)")
-    if rec.state != "succeeded":
-        raise ApiProblem(409, "Result not available",
-                         f"the job is {rec.state}; a result exists only once it has succeeded",
-                         kind="result-not-ready", state=rec.state,
-                         headers={"Retry-After": "1"} if rec.state in ("queued", "running") else None)
-    blob = _ctx().store.result_blob(job_id)
-    if blob is None:
-        raise ApiProblem(404, "Not Found", "the result has expired", kind="result-expired")
+    store = _ctx().store
+    override = {}  # outcome and message of the record, over a snapshot's
     headers = {"ETag": rec.etag, "Cache-Control": "private, max-age=3600", "Vary": "Accept"}
+    if rec.state == "queued":
+        blob = None
+    elif rec.state == "running":
+        blob = _live(store, rec, current_attempt=True)
+        headers = {"Cache-Control": "no-store", "Vary": "Accept"}
+    else:
+        blob = store.result_blob(job_id)
+        if blob is None and rec.state != "succeeded":
+            # a run that ended without a finish of its own (its worker was lost): its last
+            # snapshot, if there is one, is what it computed
+            blob = _live(store, rec, current_attempt=False)
+            override = {"outcome": rec.outcome, "message": rec.message}
+    if blob is None:
+        if rec.state in ("queued", "running"):
+            raise ApiProblem(409, "Result not ready",
+                             f"the job is {rec.state}; a partial result appears within a few seconds "
+                             "of the start of its run", kind="result-not-ready", state=rec.state,
+                             headers={"Retry-After": "1"})
+        if rec.state == "succeeded":
+            raise ApiProblem(404, "Not Found", "the result has expired", kind="result-expired")
+        raise ApiProblem(409, "No result",
+                         f"the job {rec.state} before its run produced anything: {rec.message or rec.outcome}",
+                         kind="no-result", state=rec.state, outcome=rec.outcome)
     if fmt == "csv":
         headers["Content-Disposition"] = f'attachment; filename="{job_id}.csv"'
-        return Response(results.as_csv(blob), mimetype="text/csv", headers=headers)
+        return Response(results.as_csv(blob, **override), mimetype="text/csv", headers=headers)
     if fmt == "npz":
         headers["Content-Disposition"] = f'attachment; filename="{job_id}.npz"'
-        return Response(results.as_npz(blob), mimetype="application/x-npz", headers=headers)
-    return _json(results.as_json(job_id, blob), 200, headers)
+        return Response(results.as_npz(blob, **override), mimetype="application/x-npz", headers=headers)
+    return _json(results.as_json(job_id, blob, rec.state, **override), 200, headers)
+
+
+def _live(store, rec: JobRecord, current_attempt: bool) -> bytes | None:
+    """The running attempt's latest snapshot (``current_attempt``: only if written by the
+    attempt that runs now, not by one whose worker was lost before)."""
+    blob = store.live_blob(rec.id)
+    if blob is None or not current_attempt:
+        return blob
+    meta, _ = results.decode(blob)
+    return blob if meta.get("attempt") == rec.attempt else None
 
 
 @bp.post("/jobs/<job_id>/cancel")

@@ -1,4 +1,9 @@
-"""Encode a stored result blob as JSON, CSV or NumPy .npz (content negotiation)."""
+"""Encode a stored result blob as JSON, CSV or NumPy .npz (content negotiation).
+
+Every blob (jobs/blob.py) carries its arrays and a meta header; results written before
+partial results existed lack ``partial``, ``t_reached``, ``t_end`` and ``units``, which are
+derived here from the outcome and report instead.
+"""
 from __future__ import annotations
 
 import csv
@@ -25,40 +30,92 @@ def negotiate(format_param: str | None, accept) -> str | None:
     return _ACCEPT_ALIASES.get(best) if best else None
 
 
-def decode(blob: bytes) -> tuple[dict, dict]:
-    return result_blob.decode(blob)
+def decode(blob: bytes, outcome: str | None = None, message: str | None = None) -> tuple[dict, dict]:
+    """(meta, arrays) of a blob, the meta completed: ``partial``, ``t_reached``, ``t_end``,
+    ``units``. ``outcome``/``message`` replace the blob's (a live snapshot served for a job
+    that ended without writing a result of its own: its worker was lost)."""
+    meta, arrays = result_blob.decode(blob)
+    if outcome is not None:
+        meta["outcome"], meta["message"] = outcome, message or ""
+    t = arrays["t"]
+    report = meta.get("report") or {}
+    meta.setdefault("partial", meta.get("outcome") != "succeeded")
+    if meta.get("t_reached") is None:
+        meta["t_reached"] = report.get("t_reached", float(t[-1]) if len(t) else None)
+    meta.setdefault("t_end", None)
+    meta.setdefault("units", {})
+    return meta, arrays
 
 
-def as_json(job_id: str, blob: bytes) -> dict:
-    meta, arrays = decode(blob)
+def unit_list(meta: dict, names_key: str) -> list[str]:
+    """The unit of each name in ``meta[names_key]`` ("" where it has none)."""
+    units = meta.get("units") or {}
+    return [units.get(n, "") for n in meta[names_key]]
+
+
+def _state_of(meta: dict) -> str:
+    """The state a blob's outcome implies (for callers that do not pass the job's own)."""
+    outcome = meta.get("outcome")
+    return {None: "running", "succeeded": "succeeded", "cancelled": "cancelled"}.get(outcome, "failed")
+
+
+def as_json(job_id: str, blob: bytes, state: str | None = None, outcome: str | None = None,
+            message: str | None = None) -> dict:
+    meta, arrays = decode(blob, outcome, message)
+    state = state or _state_of(meta)
     t, y, aux = arrays["t"], arrays["y"], arrays["aux"]
     finite = result_blob.json_safe  # JSON has no NaN or Infinity: those become null
     return ResultSchema().dump({
-        "id": job_id, "outcome": meta["outcome"], "message": meta["message"],
+        "id": job_id, "state": state, "partial": bool(meta["partial"]),
+        "t_reached": finite(meta["t_reached"]), "t_end": finite(meta["t_end"]),
+        "outcome": meta["outcome"], "message": meta["message"] or "",
         "times": finite(t),
         "states": {name: finite(y[:, i]) for i, name in enumerate(meta["state_names"])},
         "derived": {name: finite(aux[:, i]) for i, name in enumerate(meta["aux_names"])},
-        "events": meta.get("events", []), "report": meta.get("report", {}), "model": meta.get("model", {}), "caution": CAUTION,
+        "events": meta.get("events", []), "report": meta.get("report", {}), "model": meta.get("model", {}),
+        "units": dict(meta["units"]), "caution": CAUTION,
     })
 
 
-def as_csv(blob: bytes) -> str:
-    meta, arrays = decode(blob)
+def partial_line(meta: dict) -> str:
+    """The CSV's second comment line for a partial result ("" for a whole one)."""
+    if not meta["partial"]:
+        return ""
+    reached = "-" if meta["t_reached"] is None else f"{meta['t_reached']:.6g}"
+    end = "" if meta["t_end"] is None else f" of {meta['t_end']:.6g}"
+    why = meta["outcome"] or "running"
+    return f"# partial: solved up to t = {reached}{end}; {why}"
+
+
+def _label(name: str, unit: str) -> str:
+    return f"{name} [{unit}]" if unit else name
+
+
+def as_csv(blob: bytes, outcome: str | None = None, message: str | None = None) -> str:
+    meta, arrays = decode(blob, outcome, message)
     table = np.column_stack([arrays["t"], arrays["y"], arrays["aux"]]) if len(arrays["t"]) else []
     buf = io.StringIO()
     buf.write(CAUTION_CSV_LINE + "\n")
+    if meta["partial"]:
+        buf.write(partial_line(meta) + "\n")
     writer = csv.writer(buf, lineterminator="\n")
-    writer.writerow(["t", *meta["state_names"], *meta["aux_names"]])
+    writer.writerow(["t", *map(_label, meta["state_names"], unit_list(meta, "state_names")),
+                     *map(_label, meta["aux_names"], unit_list(meta, "aux_names"))])
     for row in table:
         writer.writerow([repr(float(v)) for v in row])
     return buf.getvalue()
 
 
-def as_npz(blob: bytes) -> bytes:
-    meta, arrays = decode(blob)
+def as_npz(blob: bytes, outcome: str | None = None, message: str | None = None) -> bytes:
+    meta, arrays = decode(blob, outcome, message)
     buf = io.BytesIO()
+    t_reached = np.nan if meta["t_reached"] is None else float(meta["t_reached"])
     np.savez_compressed(buf, t=arrays["t"], y=arrays["y"], derived=arrays["aux"],
                         state_names=np.array(meta["state_names"], dtype=str),
                         derived_names=np.array(meta["aux_names"], dtype=str),
+                        state_units=np.array(unit_list(meta, "state_names"), dtype=str),
+                        derived_units=np.array(unit_list(meta, "aux_names"), dtype=str),
+                        partial=np.array(bool(meta["partial"])), t_reached=np.array(t_reached),
+                        outcome=np.array(meta["outcome"] or ""), message=np.array(meta["message"] or ""),
                         caution=np.array(CAUTION))
     return buf.getvalue()

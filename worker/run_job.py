@@ -14,7 +14,7 @@ import traceback
 from marshmallow import ValidationError
 
 from engine.kernels import native
-from engine.integrate import CANCELLED, SUCCEEDED, integrate
+from engine.integrate import CANCELLED, SUCCEEDED, Reached, integrate
 from engine.model import ModelError, prepare
 from jobs import blob as result_blob
 from jobs import metrics
@@ -40,6 +40,7 @@ class Heartbeat:
     def __init__(self, store: JobStore, job_id: str, attempt: int, period: float = 1.0):
         self.store, self.job_id, self.attempt, self.period = store, job_id, attempt, period
         self.progress: float | None = 0.0
+        self.live: LiveResult | None = None  # set once the model is prepared
         self.cancel = False
         self.fenced = False
         self.lease_seconds = float(store.settings.lease_seconds)
@@ -67,6 +68,9 @@ class Heartbeat:
                 self.lease_until = sent + self.lease_seconds
             self.fenced = flag < 0
             self.cancel = flag == 1
+            live = self.live
+            if live is not None and not self.fenced and not self._done.is_set():
+                live.flush(self.store, self.job_id, self.attempt)
 
     def write(self, what: str, write, first_delay: float = 0.05, max_delay: float = 1.0):
         """``write()`` (a fenced finish), retried with backoff while Redis is unreachable and
@@ -95,6 +99,78 @@ class Heartbeat:
         return self.cancel or self.fenced
 
 
+LIVE_ROWS = 2000          # rows of a live snapshot at most (thinned evenly, last row kept)
+LIVE_VALUES = 400_000     # numbers per snapshot at most: fewer rows for wide models
+LIVE_PERIOD = 2.0         # seconds between snapshots at least
+
+
+class LiveResult:
+    """The partial result of a running job, for GET .../result while it runs.
+
+    The integrator hands a view of what it has reached (``__call__``, in the solving thread,
+    at most every 0.5 s); at most every ``LIVE_PERIOD`` s this copies a bounded snapshot
+    (the output rows reached, thinned to ``LIVE_ROWS``; events; step history), and the
+    heartbeat thread encodes and writes it (``flush``), fenced by the attempt. A slow write
+    stretches the period (ten times the last write's duration), so a wide model never
+    spends more than a tenth of the time on snapshots.
+    """
+
+    def __init__(self, header: dict, span: tuple[float, float], n_columns: int):
+        self.header = header  # names, units, model facts: the parts of the meta that never change
+        self.span = span
+        self.rows = max(10, min(LIVE_ROWS, LIVE_VALUES // max(n_columns, 1)))
+        self.period = LIVE_PERIOD
+        self.next_at = 0.0      # the first view is kept at once (0.5 s into the solve)
+        self.pending = None
+        self.written = 0
+
+    def __call__(self, reached: Reached) -> None:
+        now = time.monotonic()
+        if now < self.next_at or self.pending is not None:
+            return
+        self.next_at = now + self.period
+        try:
+            t, y, aux = reached.outputs(self.rows)
+            ev_t, ev_i, ev_y = reached.events()
+            report = {"method": reached.method, "accepted_steps": reached.accepted_steps,
+                      "t_reached": reached.t}
+            history = reached.step_history()
+            if history is not None:
+                report["step_history"] = history
+            self.pending = (reached.t, report, (ev_t, ev_i, ev_y), {"t": t, "y": y, "aux": aux})
+        except Exception:  # a snapshot is a courtesy: never let it stop the solve
+            log.exception("live result snapshot failed")
+
+    def flush(self, store: JobStore, job_id: str, attempt: int) -> None:
+        """Write the pending snapshot, if any (heartbeat thread)."""
+        pending, self.pending = self.pending, None
+        if pending is None:
+            return
+        t_reached, report, (ev_t, ev_i, ev_y), arrays = pending
+        h = self.header
+        started = time.perf_counter()
+        try:
+            events = [{"name": h["event_names"][int(i)], "t": float(t),
+                       "states": dict(zip(h["state_names"], y))} for i, t, y in zip(ev_i, ev_t, ev_y)]
+            meta = {"outcome": None, "partial": True, "t_reached": t_reached, "t_end": self.span[1],
+                    "attempt": attempt, "report": report, "events": events,
+                    "message": f"running: integrated to t = {t_reached:.6g} of {self.span[1]:.6g} so far",
+                    **{k: v for k, v in h.items() if k != "event_names"}}
+            if store.write_live(job_id, attempt, result_blob.encode(meta, arrays)):
+                self.written += 1
+        except Exception as e:  # Redis blip: the next snapshot will do
+            log.warning("live result of %s not written: %s", job_id, e)
+        self.period = max(LIVE_PERIOD, 10 * (time.perf_counter() - started))
+
+
+def progress_reached(t_reached: float, span) -> float:
+    """The fraction of the span a run reached, 0..1."""
+    t0, t1 = float(span[0]), float(span[1])
+    if not (t1 > t0):
+        return 0.0
+    return min(max((t_reached - t0) / (t1 - t0), 0.0), 1.0)
+
+
 def digest(report: dict, prepare_seconds: float) -> dict:
     out = {k: report[k] for k in DIGEST_KEYS if k in report}
     out["prepare_seconds"] = round(prepare_seconds, 6)
@@ -108,12 +184,13 @@ def run_job(store: JobStore, job_id: str) -> str:
         log.info("job %s not claimed: %s", job_id, status)
         return status
     with Heartbeat(store, job_id, attempt) as beat:
-        state, outcome, message, summary, blob = _solve(store, job_id, beat)
+        state, outcome, message, summary, blob, progress = _solve(store, job_id, beat)
         if beat.fenced:
             log.warning("job %s attempt %s was fenced out; result dropped", job_id, attempt)
             return "fenced"
         written = beat.write(f"finish of job {job_id}",
-                             lambda: store.finish(job_id, attempt, state, outcome, message, summary, blob))
+                             lambda: store.finish(job_id, attempt, state, outcome, message, summary, blob,
+                                                  progress))
     if written is None:
         return "lease_lost"
     if written:  # operations metrics (jobs/metrics.py)
@@ -134,16 +211,23 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         p, y0 = prepared.with_overrides(spec["parameters"], spec["initial"])
         times = output_times(spec["span"], spec["output"])
         options = solver_options(spec, prepared, wall_cap=max(wall - prepare_seconds, 0.01))
+        header = {"state_names": list(prepared.state_names), "aux_names": list(prepared.aux_names),
+                  "units": dict(prepared.units), "model": prepared.summary()}
+        beat.live = LiveResult(dict(header, event_names=list(prepared.event_names)), tuple(spec["span"]),
+                               1 + len(prepared.state_names) + len(prepared.aux_names))
         sol = integrate(prepared.kernel, p, y0, tuple(spec["span"]), times, options,
-                        monitor=beat.monitor, conservation=prepared.conservation)
+                        monitor=beat.monitor, conservation=prepared.conservation, live=beat.live)
     except PreparationLimit as e:
         log.warning("job %s: %s", job_id, e.message)
-        return "failed", e.outcome, e.message, {}, None
+        return "failed", e.outcome, e.message, {}, None, None
     except (ValidationError, ModelError) as e:
-        return "failed", "invalid_spec", f"the stored spec no longer validates: {e}", {}, None
+        return "failed", "invalid_spec", f"the stored spec no longer validates: {e}", {}, None, None
     except Exception as e:  # never let a solve crash the worker
         log.error("job %s crashed in the engine:\n%s", job_id, traceback.format_exc())
-        return "failed", "internal_error", f"internal error while solving ({type(e).__name__}: {e})", {}, None
+        return ("failed", "internal_error", f"internal error while solving ({type(e).__name__}: {e})", {},
+                None, None)
+    finally:
+        beat.live = None  # no snapshot after the run: the finish writes the result
     state = {SUCCEEDED: "succeeded", CANCELLED: "cancelled"}.get(sol.outcome, "failed")
     if sol.machine_code_from is not None:  # a long run moved to machine code mid-way
         m = sol.machine_code_from
@@ -154,8 +238,10 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
     summary = result_blob.json_safe(digest(sol.report, prepare_seconds) | {"t_reached": sol.t_reached})
     events = [{"name": prepared.event_names[int(i)], "t": float(t), "states": dict(zip(prepared.state_names, y))}
               for i, t, y in zip(sol.event_index, sol.event_t, sol.event_y)]
-    meta = {"outcome": sol.outcome, "message": sol.message, "state_names": list(prepared.state_names),
-            "aux_names": list(prepared.aux_names), "report": sol.report, "events": events,
-            "model": prepared.summary()}
+    # every run that reached the solver keeps what it computed: a failed, cancelled or
+    # time-limited run's states up to the last output time reached, flagged partial
+    meta = {"outcome": sol.outcome, "message": sol.message, "partial": state != "succeeded",
+            "t_reached": sol.t_reached, "t_end": float(spec["span"][1]), "report": sol.report,
+            "events": events, **header}
     blob = result_blob.encode(meta, {"t": sol.t, "y": sol.y, "aux": sol.aux})
-    return state, sol.outcome, sol.message, summary, blob
+    return state, sol.outcome, sol.message, summary, blob, progress_reached(sol.t_reached, spec["span"])

@@ -9,10 +9,10 @@
 from stifflane_client.batches import Batch, BatchTable
 from stifflane_client.client import Client, Job
 from stifflane_client.errors import (ApiError, AuthError, InvalidSpec, JobFailed, ServiceUnavailable,
-                                     StifflaneError, WaitTimeout)
+                                     StifflaneError, WaitTimeout, ending)
 from stifflane_client.results import CAUTION, Result
 from stifflane_client.spec import Model, job_spec, load_spec
 
 __all__ = ["Client", "Job", "Result", "Batch", "BatchTable", "Model", "job_spec", "load_spec", "ApiError", "AuthError",
-           "InvalidSpec", "JobFailed", "ServiceUnavailable", "StifflaneError", "WaitTimeout", "CAUTION"]
+           "InvalidSpec", "JobFailed", "ServiceUnavailable", "StifflaneError", "WaitTimeout", "CAUTION", "ending"]
 __version__ = "0.1.0"

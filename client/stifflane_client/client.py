@@ -9,7 +9,7 @@ from typing import Iterator
 import requests
 
 from stifflane_client.batches import BatchesMixin
-from stifflane_client.errors import JobFailed
+from stifflane_client.errors import ApiError, JobFailed
 from stifflane_client.progress import poll_until_done
 from stifflane_client.results import Result
 from stifflane_client.spec import load_spec
@@ -123,18 +123,32 @@ class Client(BatchesMixin):
             f"job {job_id}", timeout, progress, poll, max_poll, on_update)
 
     def run(self, spec, timeout: float | None = None, progress: bool = False) -> Result:
-        """Submit, wait and fetch the result; raises JobFailed if there is none."""
+        """Submit, wait and fetch the result; raises JobFailed when the job failed or was
+        cancelled (its ``result`` is then the partial result, if the run computed one)."""
         job = self.wait(self.submit(spec).view["id"], timeout=timeout, progress=progress)
         if job.view["state"] != "succeeded":
-            raise JobFailed(job.view)
+            raise JobFailed(job.view, self.partial_result(job.view["id"]))
         return self.result(job.view["id"])
 
     # --- results
     def result(self, job_id: str, format: str = "json") -> Result:
-        """The result as arrays: "json" (with the stiffness report) or "npz" (arrays only)."""
+        """The result as arrays: "json" (with the stiffness report) or "npz" (arrays only).
+
+        Whole for a succeeded job; for a failed or cancelled job what its run computed, and
+        for a running one its latest snapshot (``Result.partial`` True, ``t_reached``). A job
+        with nothing to show (queued, just started, or ended before its run) raises ApiError 409."""
         if format == "npz":
             return Result.from_npz(job_id, self.result_bytes(job_id, "npz"))
         return Result.from_json(self.http.request("GET", f"/v1/jobs/{job_id}/result").json())
+
+    def partial_result(self, job_id: str) -> Result | None:
+        """The result so far, or None while there is none (409)."""
+        try:
+            return self.result(job_id)
+        except ApiError as e:
+            if e.status == 409:
+                return None
+            raise
 
     def result_bytes(self, job_id: str, format: str = "json") -> bytes:
         if format not in FORMATS:

@@ -55,13 +55,32 @@ class AuthError(ApiError):
     """401/403: a missing, wrong or revoked key (pass key= or set STIFFLANE_KEY)."""
 
 
-class JobFailed(StifflaneError):
-    """The job ended without a result (failed or cancelled); ``job`` is its last view."""
+def ending(view: dict) -> str:
+    """How a job ended (or where it is), as one plain sentence from its view."""
+    job, state = view.get("id") or "", view.get("state") or ""
+    message = (view.get("message") or "").strip().rstrip(".")
+    if state == "cancelled":
+        # the server's cancel messages start with the word itself ("cancelled on request at t=...")
+        rest = message[len("cancelled"):].strip() if message.lower().startswith("cancelled") else message
+        text = f"job {job} was cancelled" + ((" " if rest[:1].isalpha() else ": ") + rest if rest else "")
+    elif state == "failed":
+        text = f"job {job} failed" + (f": {message}" if message else
+                                      f" ({view.get('outcome')})" if view.get("outcome") else "")
+    elif state == "succeeded":
+        text = f"job {job} succeeded" + (f": {message}" if message else "")
+    else:
+        text = f"job {job} is {state or 'in an unknown state'}"
+    return text + "."
 
-    def __init__(self, job: dict):
+
+class JobFailed(StifflaneError):
+    """The job failed or was cancelled; ``job`` is its last view, ``result`` what its run
+    computed before it stopped (a partial ``Result``), or None when it never ran."""
+
+    def __init__(self, job: dict, result=None):
         self.job = job
-        super().__init__(f"job {job.get('id')} {job.get('state')}"
-                         f" ({job.get('outcome') or 'no outcome'}): {job.get('message') or ''}")
+        self.result = result
+        super().__init__(ending(job))
 
 
 class WaitTimeout(StifflaneError):

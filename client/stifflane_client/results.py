@@ -1,4 +1,5 @@
-"""A finished job's result as NumPy arrays (and a pandas DataFrame when pandas is present)."""
+"""A job's result as NumPy arrays (and a pandas DataFrame when pandas is present): whole for a
+succeeded job, partial (``Result.partial``) for a failed, cancelled or running one."""
 from __future__ import annotations
 
 import io
@@ -20,7 +21,12 @@ def _array(values) -> np.ndarray:
 
 @dataclass
 class Result:
-    """Output times ``t``, states ``y`` (len(t) x n_states) and derived quantities."""
+    """Output times ``t``, states ``y`` (len(t) x n_states) and derived quantities.
+
+    ``partial`` is True for a failed, cancelled or still running job: the arrays then hold
+    the output times reached, up to ``t_reached`` (``message`` says why it stopped).
+    ``units`` maps state and parameter names to the model's unit labels (names without
+    one are absent; the .npz form carries the states' and derived quantities' only)."""
 
     id: str
     t: np.ndarray
@@ -33,6 +39,12 @@ class Result:
     report: dict = field(default_factory=dict)
     model: dict = field(default_factory=dict)
     caution: str = CAUTION
+    state: str = ""
+    partial: bool = False
+    t_reached: float | None = None
+    t_end: float | None = None
+    units: dict = field(default_factory=dict)
+    events: list = field(default_factory=list)
 
     @classmethod
     def from_json(cls, body: dict) -> "Result":
@@ -40,17 +52,39 @@ class Result:
         t = _array(body.get("times") or [])
         y = np.column_stack([_array(v) for v in states.values()]) if states else np.zeros((len(t), 0))
         d = np.column_stack([_array(v) for v in derived.values()]) if derived else np.zeros((len(t), 0))
-        return cls(body.get("id", ""), t, y, d, list(states), list(derived), body.get("outcome", ""),
-                   body.get("message", ""), body.get("report") or {}, body.get("model") or {},
-                   body.get("caution") or CAUTION)
+        return cls(body.get("id", ""), t, y, d, list(states), list(derived), body.get("outcome") or "",
+                   body.get("message") or "", body.get("report") or {}, body.get("model") or {},
+                   body.get("caution") or CAUTION, state=body.get("state") or "",
+                   partial=bool(body.get("partial", False)), t_reached=body.get("t_reached"),
+                   t_end=body.get("t_end"), units=dict(body.get("units") or {}),
+                   events=list(body.get("events") or []))
 
     @classmethod
     def from_npz(cls, job_id: str, data: bytes) -> "Result":
-        """From the server's .npz (arrays and the caution; the report comes with the JSON form)."""
+        """From the server's .npz (arrays, units, the partial flag and the caution; the report
+        and events come with the JSON form)."""
         with np.load(io.BytesIO(data), allow_pickle=False) as z:
-            caution = str(z["caution"]) if "caution" in z.files else CAUTION
-            return cls(job_id, z["t"], z["y"], z["derived"], [str(s) for s in z["state_names"]],
-                       [str(s) for s in z["derived_names"]], caution=caution)
+            files = set(z.files)
+
+            def text(name: str) -> str:
+                return str(z[name]) if name in files else ""
+
+            state_names = [str(s) for s in z["state_names"]]
+            derived_names = [str(s) for s in z["derived_names"]]
+            units = {}
+            for names, key in ((state_names, "state_units"), (derived_names, "derived_units")):
+                if key in files:
+                    units.update({n: str(u) for n, u in zip(names, z[key]) if str(u)})
+            t_reached = float(z["t_reached"]) if "t_reached" in files else None
+            return cls(job_id, z["t"], z["y"], z["derived"], state_names, derived_names,
+                       outcome=text("outcome"), message=text("message"), caution=text("caution") or CAUTION,
+                       partial=bool(z["partial"]) if "partial" in files else False,
+                       t_reached=None if t_reached is None or np.isnan(t_reached) else t_reached,
+                       units=units)
+
+    def unit(self, name: str) -> str:
+        """The unit label of a state, derived quantity or parameter ("" when it has none)."""
+        return self.units.get(name, "")
 
     def __getitem__(self, name: str) -> np.ndarray:
         """The column of a state or derived quantity by name (``"t"`` for the times)."""

@@ -1,6 +1,7 @@
 """The command line: every command documented, local validation, job commands on the live stack."""
 import csv
 import json
+import time
 
 import numpy as np
 import pytest
@@ -82,6 +83,24 @@ def test_the_report_reads_as_tables():
     assert set(lines[header + 1].replace(" ", "")) == {"-"}
 
 
+def test_the_report_lists_events_units_and_says_a_result_is_partial():
+    result = {"state": "failed", "outcome": "step_underflow", "partial": True, "t_reached": 1.0, "t_end": 2.0,
+              "message": "the step size fell to the round-off limit at t=1", "times": [0.0, 0.5, 1.0],
+              "units": {"a": "mol/L"}, "report": {"accepted_steps": 12, "t_reached": 1.0},
+              "events": [{"name": "half_gone", "t": 0.231, "states": {"a": 0.5, "b": 0.5}}]}
+    text = format_report(result)
+    lines = text.splitlines()
+    assert lines[:3] == ["state: failed (outcome step_underflow)",
+                         "The step size fell to the round-off limit at t=1.",
+                         "Partial result: solved up to t = 1 of 2 before the run stopped (3 output times)."]
+    events = lines.index("Events")
+    assert lines[events + 1].split() == ["event", "t", "a", "[mol/L]", "b"]
+    assert lines[events + 3].split() == ["half_gone", "0.231", "0.5", "0.5"]
+    assert "Units" in lines and "a     mol/L" in text
+    whole = format_report({"state": "succeeded", "outcome": "succeeded", "partial": False, "message": "done"})
+    assert "Partial" not in whole and "Events" not in whole
+
+
 def test_an_unreachable_server_exits_5(capsys):
     assert main(["--server", "http://127.0.0.1:9", "list"]) == common.UNREACHABLE
     assert "stifflane up" in capsys.readouterr().err
@@ -96,7 +115,8 @@ def test_submit_wait_save_report_list_and_result(stack, tmp_path, capsys):
     assert "caution: Numerical results are approximations" in streams.err
     caution, *rows = list(csv.reader(out.open()))
     assert caution[0].startswith("# caution: Numerical results are approximations")
-    assert rows[0] == ["t", "S", "H2", "P", "Byp", "T", "k2", "r1", "r2", "feed", "heat"] and len(rows) == 122
+    assert rows[0] == ["t", "S [mol/L]", "H2 [mol/L]", "P [mol/L]", "Byp [mol/L]", "T [K]",
+                       "k2", "r1", "r2", "feed", "heat"] and len(rows) == 122
     assert main(["report", job_id, "--server", stack.base]) == common.OK
     assert "accepted steps" in capsys.readouterr().out
     assert main(["list", "--server", stack.base, "--limit", "5"]) == common.OK
@@ -131,8 +151,16 @@ def test_cancel_a_running_job(stack, tmp_path, capsys, monkeypatch):
     path.write_text(json.dumps(spec))
     assert main(["submit", str(path)]) == common.OK
     job_id = capsys.readouterr().out.strip()
+    stack.wait(job_id, states=("running",), timeout=60)
+    time.sleep(1.0)  # let it run a little: a partial result to keep
     assert main(["cancel", job_id]) == common.OK
+    capsys.readouterr()
     assert main(["watch", job_id, "-q", "--timeout", "120"]) == common.JOB_NOT_SUCCEEDED
+    streams = capsys.readouterr()
+    # before: "job cancelled: cancelled cancelled on request at t=..."
+    assert "cancelled cancelled" not in streams.out + streams.err
+    assert f"job {job_id} was cancelled on request at t=" in streams.err
+    assert "its partial result, up to t = " in streams.err and f"stifflane result {job_id}" in streams.err
 
 
 def test_keys_are_created_listed_and_revoked_in_redis(redis_server, monkeypatch, capsys):
@@ -173,3 +201,35 @@ def test_batch_submit_wait_table_and_stats(stack, tmp_path, capsys, monkeypatch)
     assert "final_y" in capsys.readouterr().out
     assert main(["batch", "list"]) == common.OK
     assert batch_id in capsys.readouterr().out
+
+
+@pytest.mark.e2e
+def test_a_failed_jobs_partial_result_and_report_come_with_why(stack, tmp_path, capsys, monkeypatch):
+    # y' = y^2, y(0) = 1 blows up at t = 1 (y = 1/(1 - t)); the event a - 2 fires at t = 0.5
+    monkeypatch.setenv("STIFFLANE_URL", stack.base)
+    spec = {"model": {"states": {"y": {"initial": 1.0, "unit": "mol/L"}}, "ddt": {"y": "y^2"},
+                      "events": [{"name": "doubled", "when": "y - 2", "direction": "rising"}]},
+            "span": [0, 2], "output": {"count": 21}}
+    path = tmp_path / "blow_up.json"
+    path.write_text(json.dumps(spec))
+    out = tmp_path / "partial.csv"
+    assert main(["submit", str(path), "--wait", "-q", "-o", str(out)]) == common.JOB_NOT_SUCCEEDED
+    streams = capsys.readouterr()
+    job_id = streams.out.strip()
+    # before: "job failed: step_underflow the step size fell ..." and nothing saved
+    assert f"job {job_id} failed: the step size fell to the round-off limit" in streams.err
+    assert "its partial result, up to t = 1 (50% of the span), is kept: saved to" in streams.err
+    caution, partial, header, *rows = out.read_text().splitlines()
+    assert partial == "# partial: solved up to t = 1 of 2; step_underflow"
+    assert header == "t,y [mol/L]" and len(rows) == 11
+    assert main(["result", job_id]) == common.JOB_NOT_SUCCEEDED
+    streams = capsys.readouterr()
+    assert "# partial: solved up to t = 1 of 2" in streams.out
+    assert f"partial result: job {job_id} failed: the step size fell" in streams.err
+    assert main(["report", job_id]) == common.JOB_NOT_SUCCEEDED
+    text = capsys.readouterr().out
+    assert "Partial result: solved up to t = 1 of 2 before the run stopped (11 output times)." in text
+    events = text.splitlines()[text.splitlines().index("Events") + 3].split()
+    assert events[0] == "doubled" and float(events[1]) == pytest.approx(0.5, abs=1e-6)
+    assert float(events[2]) == pytest.approx(2.0, abs=1e-6)
+

@@ -77,3 +77,34 @@ def test_cancel_and_wait_timeout(client):
     assert job.state == "cancelled"
     with pytest.raises(JobFailed):
         client.run(spec | {"limits": {"max_steps": 10, "max_wall_seconds": 10}}, timeout=120)
+
+
+# y' = k y^2, y(0) = 1 (k = 1): y = 1 / (1 - t) leaves every bound at t = 1, so a run over
+# [0, 2] fails there (step size underflow)
+BLOW_UP = Model(title="blow-up", states={"y": {"initial": 1.0, "unit": "mol/L"}},
+                parameters={"k": {"value": 1.0, "unit": "L/(mol*s)"}}, ddt={"y": "k * y^2"})
+
+
+def test_a_failed_jobs_partial_result_comes_as_arrays_with_units(client):
+    # before: result() raised ApiError 409 and JobFailed carried nothing to inspect
+    spec = job_spec(BLOW_UP, (0, 2), count=21, label="client blow-up")
+    with pytest.raises(JobFailed) as info:
+        client.run(spec, timeout=180)
+    failed = info.value
+    assert str(failed).startswith(f"job {failed.job['id']} failed: the step size fell")
+    res = failed.result
+    assert res is not None and res.partial and res.state == "failed" and res.outcome == "step_underflow"
+    assert res.t_reached == pytest.approx(1.0, abs=1e-3) and res.t_end == 2.0
+    assert len(res.t) == 11 and res.t.max() <= res.t_reached
+    np.testing.assert_allclose(res["y"][:10], 1 / (1 - res.t[:10]), rtol=1e-4)
+    assert res.units == {"y": "mol/L", "k": "L/(mol*s)"} and res.unit("y") == "mol/L"
+    npz = client.result(failed.job["id"], format="npz")
+    assert npz.partial and npz.t_reached == pytest.approx(res.t_reached)
+    assert npz.units == {"y": "mol/L"} and npz.outcome == "step_underflow"
+    np.testing.assert_array_equal(npz.y, res.y)
+
+
+def test_a_succeeded_result_is_whole_with_its_units(client):
+    res = client.run(job_spec(BLOW_UP, (0, 0.5), count=6), timeout=180)
+    assert not res.partial and res.state == "succeeded" and res.t_reached == pytest.approx(0.5)
+    assert res.unit("y") == "mol/L" and res.unit("k") == "L/(mol*s)"

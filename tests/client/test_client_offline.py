@@ -131,3 +131,28 @@ def test_polls_send_the_last_etag_and_a_304_keeps_the_last_view():
     again = c.job("j1")
     assert session.calls[1][2]["headers"]["If-None-Match"] == '"j1-7"'
     assert again.view == view
+
+
+def test_how_a_job_ended_reads_as_one_plain_sentence():
+    from stifflane_client import ending
+
+    # before: "job cancelled: cancelled cancelled on request" and "job failed: step_underflow the step..."
+    assert ending({"id": "j1", "state": "cancelled", "outcome": "cancelled",
+                   "message": "cancelled on request at t=0.5"}) == "job j1 was cancelled on request at t=0.5."
+    assert ending({"id": "j1", "state": "cancelled", "outcome": "cancelled",
+                   "message": "cancelled before it started"}) == "job j1 was cancelled before it started."
+    assert ending({"id": "j2", "state": "failed", "outcome": "step_underflow",
+                   "message": "the step size fell to the round-off limit at t=1"}) == \
+        "job j2 failed: the step size fell to the round-off limit at t=1."
+    assert ending({"id": "j3", "state": "failed", "outcome": "worker_lost", "message": ""}) == \
+        "job j3 failed (worker_lost)."
+
+
+def test_a_partial_result_says_so_and_where_it_stopped():
+    body = {"id": "j", "state": "failed", "partial": True, "t_reached": 1.0, "t_end": 2.0,
+            "outcome": "step_underflow", "message": "m", "times": [0.0, 1.0], "states": {"y": [1.0, 9.0]},
+            "derived": {}, "units": {"y": "mol/L"}, "events": [{"name": "e", "t": 0.5, "states": {"y": 2.0}}]}
+    res = Result.from_json(body)
+    assert res.partial and res.t_reached == 1.0 and res.units == {"y": "mol/L"} and res.events[0]["name"] == "e"
+    old = Result.from_json({"id": "j", "times": [0.0], "states": {"y": [1.0]}, "derived": {}})
+    assert not old.partial and old.units == {} and old.t_reached is None

@@ -41,7 +41,7 @@ def test_submit_watch_plot_on_log_axes_and_download_csv(browser, stack):
         page.click("#downloads [data-fmt=csv]")
     caution, *rows = list(csv.reader(io.StringIO(open(info.value.path()).read())))
     assert caution[0].startswith("# caution: ")
-    assert rows[0][:6] == ["t", "S", "H2", "P", "Byp", "T"] and len(rows) == 122
+    assert rows[0][:6] == ["t", "S [mol/L]", "H2 [mol/L]", "P [mol/L]", "Byp [mol/L]", "T [K]"] and len(rows) == 122
     page.goto(stack.base + "/")
     row = page.wait_for_selector(f"tr[data-id='{job_id}']")
     assert "succeeded" in row.inner_text()
