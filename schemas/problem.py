@@ -24,6 +24,9 @@ class ProblemSchema(Schema):
     detail = fields.String()
     instance = fields.String()
     errors = fields.List(fields.Nested(InvalidParamSchema))
+    line = fields.Integer(metadata={"description": "malformed JSON: the line where reading stopped (from 1)"})
+    column = fields.Integer(metadata={"description": "malformed JSON: the column there (from 1)"})
+    limit_bytes = fields.Integer(metadata={"description": "413: the largest body accepted, in bytes"})
 
 
 def escape_pointer_token(token) -> str:
