@@ -1,5 +1,6 @@
 """The local stack's folder: `keys` finds the local Redis by itself; one Redis per data folder;
 `up` refuses a busy port or a folder another stack runs on, before it starts anything."""
+import shutil
 import socket
 import subprocess
 import sys
@@ -20,7 +21,8 @@ def var(monkeypatch):
     for name in ("REDIS_URL", "STIFFLANE_REDIS_URL", "STIFFLANE_KEY_PREFIX"):
         monkeypatch.delenv(name, raising=False)
     monkeypatch.setenv("STIFFLANE_VAR", str(d))
-    return d
+    yield d
+    shutil.rmtree(d, ignore_errors=True)
 
 
 @pytest.fixture

@@ -2,7 +2,7 @@
 URLs last; a second stack on the same folder or port is refused while it runs; Ctrl-C stops
 the front, the API, the worker and then Redis, with no traceback."""
 import os
-import re
+import shutil
 import signal
 import subprocess
 import sys
@@ -88,6 +88,7 @@ def test_up_prints_the_block_last_refuses_a_second_stack_and_stops_in_order():
         same_port = subprocess.run(
             [*cmd[:-4], "--port", str(port), "--redis-port", str(free_port())], cwd=ROOT,
             env=dict(env, STIFFLANE_VAR=str(other)), capture_output=True, text=True, timeout=60)
+        shutil.rmtree(other, ignore_errors=True)
         assert same_port.returncode == 1 and f"API port {port} on 127.0.0.1 is already in use" in same_port.stderr
         assert "API key" not in same_port.stdout and not (other / "redis" / "redis.conf").exists()
         assert up.poll() is None
@@ -126,3 +127,4 @@ def test_up_prints_the_block_last_refuses_a_second_stack_and_stops_in_order():
     assert not [pid for pid in children if alive(pid)]
     assert not local_stack.is_held(local_stack.stack_lock(var))
     assert not local_stack.is_held(local_stack.redis_lock(var / "redis"))
+    shutil.rmtree(var, ignore_errors=True)
