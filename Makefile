@@ -7,6 +7,7 @@ STAMP := $(VENV)/.installed
 .PHONY: run test install front bench bench-quick clean
 
 $(STAMP): pyproject.toml client/pyproject.toml
+	@echo "installing the Python packages into $(VENV) (about 30 s, once)"
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/pip install --quiet --upgrade pip
 	$(BIN)/pip install --quiet -e '.[test]' -e client/

@@ -78,7 +78,7 @@ def cmd_stats(args) -> int:
 def cmd_list(args) -> int:
     views = [b.view for b in make_client(args).batches(limit=min(args.limit, 200))][:args.limit]
     for v in views:
-        print(_progress_line(v) + f"  {v.get('title') or ''}")
+        print(_progress_line(v) + f"  {v.get('label') or ''}")
     return OK
 
 

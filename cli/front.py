@@ -53,9 +53,9 @@ def socket_path(front_dir: Path) -> Path:
     return front_dir / "api.sock"
 
 
-def _problem(status: int, title: str, detail: str, kind: str) -> str:
+def _problem(status: int, title: str, detail: str, kind: str, **extra) -> str:
     body = {"type": f"https://stifflane.invalid/problems/{kind}", "title": title, "status": status,
-            "detail": detail}
+            "detail": detail, **extra}
     return json.dumps(body).replace("\\", "\\\\").replace("'", "\\'")
 
 
@@ -65,7 +65,7 @@ def _error_pages(max_body_bytes: int) -> list[tuple[int, int, str]]:
         (413, 413, _problem(413, "Content Too Large",
                             f"the request body is larger than the limit of {max_body_bytes} bytes "
                             f"({max_body_bytes / 1048576:g} MiB); split a large sweep into several "
-                            "batches", "body-too-large")),
+                            "batches", "body-too-large", limit_bytes=max_body_bytes)),
         (414, 414, _problem(414, "URI Too Long",
                             "the request line is longer than 4096 bytes; send parameters in the body",
                             "uri-too-long")),

@@ -1,29 +1,51 @@
 """``stifflane keys create|list|revoke``: API keys, managed directly in the service's Redis.
 
-These commands talk to Redis (REDIS_URL), not to the API: they are for the operator of
-the stack. The full key is printed once, at creation; only its digest is stored.
+These commands talk to Redis, not to the API: they are for the operator of the stack. The
+Redis is --redis-url, else $REDIS_URL, else the local stack's own (``stifflane up`` on this
+machine: its address and password are read from var/redis/, so nothing needs setting). The
+full key is printed once, at creation; only its digest is stored.
 """
 from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 from dataclasses import replace
 from datetime import datetime, timezone
+from pathlib import Path
 
+from cli import local_stack
 from cli.common import API_ERROR, OK, USAGE
 
 NOT_FOUND = 4
+
+
+class NoRedis(Exception):
+    """Neither an address given nor a local stack running."""
+
+
+def redis_url(args) -> str:
+    """--redis-url, $REDIS_URL (or $STIFFLANE_REDIS_URL), else the local stack's Redis."""
+    from jobs.settings import Settings
+
+    if args.redis_url:
+        return args.redis_url
+    if os.environ.get("REDIS_URL") or os.environ.get("STIFFLANE_REDIS_URL"):
+        return Settings.from_env().redis_url
+    var = Path(args.var) if getattr(args, "var", None) else local_stack.default_var()
+    url = local_stack.local_redis_url(var)
+    if url is None:
+        raise NoRedis(f"no Redis to manage keys in: no local stack is running on {local_stack.shown(var)} "
+                      "(start it with 'stifflane up'), and neither --redis-url nor REDIS_URL is set")
+    return url
 
 
 def _store(args):
     from jobs.settings import Settings
     from jobs.store import JobStore
 
-    settings = Settings.from_env()
-    if args.redis_url:
-        settings = replace(settings, redis_url=args.redis_url)
-    return JobStore.connect(settings)
+    return JobStore.connect(replace(Settings.from_env(), redis_url=redis_url(args)))
 
 
 def _guard(func):
@@ -32,8 +54,12 @@ def _guard(func):
 
         try:
             return func(args)
+        except NoRedis as e:
+            print(f"error: {e}", file=sys.stderr)
+            return API_ERROR
         except redis.RedisError as e:
-            print(f"error: cannot use Redis ({e}); set REDIS_URL or pass --redis-url", file=sys.stderr)
+            print(f"error: cannot use Redis ({e}); is the stack running? Pass --redis-url or set "
+                  "REDIS_URL for a Redis of your own", file=sys.stderr)
             return API_ERROR
         except ValueError as e:
             print(f"error: {e}", file=sys.stderr)
@@ -86,7 +112,10 @@ def register(sub) -> None:
     ks = p.add_subparsers(dest="keys_command", required=True)
 
     def common(q, examples):
-        q.add_argument("--redis-url", help="the service's Redis (default $REDIS_URL)")
+        q.add_argument("--redis-url", help="the service's Redis (default $REDIS_URL, else the local "
+                                           "stack's, found in its folder)")
+        q.add_argument("--var", metavar="DIR", help="the local stack's folder (default $STIFFLANE_VAR "
+                                                    "or the project's var/)")
         q.formatter_class = argparse.RawDescriptionHelpFormatter
         q.epilog = "examples:\n" + examples + "\n\nexit codes: 0 success, 2 bad arguments, 4 not found or Redis error"
 

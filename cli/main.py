@@ -104,17 +104,24 @@ def check_redis(redis_url: str | None = None) -> None:
 
 
 def cmd_warm(_args) -> int:
-    started = time.perf_counter()
-    from engine.warmup import warm_up
+    from cli.warm import warm
 
-    warm_up()
-    print(f"engine kernels ready in {time.perf_counter() - started:.1f} s")
+    warm()  # with progress while compiling (cli/warm.py)
     return 0
+
+
+def _refuse_busy_port(what: str, host: str, port: int, option: str) -> None:
+    from cli import local_stack as ls
+
+    if (why := ls.port_problem(host, port)) is not None:
+        raise SystemExit(ls.busy_port_message(what, option, host, port, why).replace(
+            "stifflane up", f"stifflane {what.lower()}"))
 
 
 def cmd_redis(args) -> int:
     from cli.redis_server import start_redis
 
+    _refuse_busy_port("Redis", "127.0.0.1", args.port, "--port")
     proc = start_redis(args.port, Path(args.data))
     from cli.redis_server import local_url
 
@@ -129,6 +136,7 @@ def cmd_redis(args) -> int:
 
 
 def cmd_api(args) -> int:
+    _refuse_busy_port("API", args.host, args.port, "--port")
     check_redis()
     if args.front:
         from cli import front
@@ -146,18 +154,40 @@ def cmd_worker(args) -> int:
     os.execvpe(sys.executable, supervise.command(worker_command(args.concurrency)), env)
 
 
-def _wait_http(url: str, seconds: float) -> bool:
-    deadline = time.time() + seconds
-    while time.time() < deadline:
-        try:
-            with urllib.request.urlopen(url, timeout=2):
-                return True
-        except (urllib.error.URLError, ConnectionError, OSError):
-            time.sleep(0.2)
-    return False
+def _get_json(url: str, timeout: float = 2.0) -> dict | None:
+    try:
+        with urllib.request.urlopen(url, timeout=timeout) as resp:
+            return json.load(resp)
+    except (urllib.error.URLError, ConnectionError, OSError, ValueError):
+        return None
 
 
-def local_key(redis_url: str) -> str:
+def _first_dead(procs) -> str | None:
+    for name, p in procs:
+        if p.poll() is not None:
+            return f"{name} exited with status {p.returncode} while starting"
+    return None
+
+
+def wait_ready(base: str, procs, api_seconds: float = 60.0, worker_seconds: float = 90.0) -> str | None:
+    """Wait for our API, then for a worker to report in. None when ready, else what went wrong.
+    Our processes must stay alive meanwhile: an answer while one of them died came from someone
+    else's server."""
+    deadline = time.time() + api_seconds
+    while (health := _get_json(base + "/v1/health")) is None:
+        if (dead := _first_dead(procs)) or time.time() > deadline:
+            return dead or f"the API did not answer at {base} within {api_seconds:.0f} s"
+        time.sleep(0.2)
+    deadline = time.time() + worker_seconds
+    while not (health or {}).get("worker_count"):
+        if (dead := _first_dead(procs)) or time.time() > deadline:
+            return dead or f"no worker reported in within {worker_seconds:.0f} s"
+        time.sleep(0.5)
+        health = _get_json(base + "/v1/health")
+    return _first_dead(procs)
+
+
+def local_key(redis_url: str, path: Path | None = None) -> str:
     """The local stack's admin key: made once, kept in var/local.key (mode 600)."""
     from dataclasses import replace
 
@@ -165,7 +195,7 @@ def local_key(redis_url: str) -> str:
     from jobs.settings import Settings
     from jobs.store import JobStore
 
-    path = ROOT / "var" / "local.key"
+    path = path or ROOT / "var" / "local.key"
     store = JobStore.connect(replace(Settings.from_env(), redis_url=redis_url))
     if path.exists():
         key = path.read_text().strip()
@@ -186,64 +216,166 @@ def submit_demo(base: str, key: str | None) -> None:
     with urllib.request.urlopen(req, timeout=10) as resp:
         job = json.load(resp)
     job_url = base + job["links"]["self"]
-    print(f"demo job submitted (invented scenario of the fictional Tarnwhistle Lab): {job_url}")
+    print(f"demo job submitted (invented scenario of the fictional Tarnwhistle Lab): {job_url}", flush=True)
     deadline = time.time() + 120
     while time.time() < deadline:
         with urllib.request.urlopen(urllib.request.Request(job_url, headers=auth), timeout=10) as resp:
             view = json.load(resp)
         if view["state"] in ("succeeded", "failed", "cancelled"):
-            print(f"demo job {view['state']}: {view.get('message') or ''}")
+            print(f"demo job {view['state']}: {view.get('message') or ''}", flush=True)
             if view["state"] == "succeeded":
                 print(f"  result (JSON): {base}{view['links']['result']}")
-                print(f"  result (CSV):  {base}{view['links']['result']}?format=csv")
+                print(f"  result (CSV):  {base}{view['links']['result']}?format=csv", flush=True)
             return
         time.sleep(0.5)
-    print("demo job still running after 120 s; watch it on the dashboard")
+    print("demo job still running after 120 s; watch it on the dashboard", flush=True)
+
+
+def ready_block(base: str, key: str | None, key_path: Path, port: int) -> str:
+    """What a user needs from the start-up, framed, so it stands apart from the log lines."""
+    from cli.local_stack import shown
+
+    lines = ["Stifflane is running", "",
+             f"dashboard  {base}/",
+             f"API        {base}/v1   (OpenAPI: {base}/v1/openapi.json)"]
+    if key:
+        lines.append(f"API key    {key}")
+        lines.append(f"           (owner 'lab', admin; also in {shown(key_path)})")
+    else:
+        lines.append("API key    none needed (STIFFLANE_AUTH_MODE=off)")
+    lines += ["", "For the Python client and the stifflane job commands, in another shell:"]
+    if port != DEFAULT_API_PORT:  # the client's default address is :8750
+        lines.append(f"  export STIFFLANE_URL={base}")
+    if key:
+        lines.append(f"  export STIFFLANE_KEY=$(cat {shown(key_path)})")
+    if port == DEFAULT_API_PORT and not key:
+        lines.append("  nothing to set: the client's defaults point here")
+    lines += ["", "Ctrl-C stops every process (front, API, worker, then Redis)."]
+    width = max(len(line) for line in lines)
+    rule = "+" + "-" * (width + 4) + "+"
+    return "\n".join(["", rule, *(f"|  {line:<{width}}  |" for line in lines), rule, ""])
 
 
 def _raise_interrupt(signum, frame):
     raise KeyboardInterrupt
 
 
+STOP_ORDER = ("front", "api", "worker", "redis")  # no request reaches a stopped worker; Redis last
+STOP_SECONDS = {"front": 10.0, "api": 15.0, "worker": 10.0, "redis": 15.0}
+
+
+def stop_in_order(procs, say=None) -> None:
+    """Stop the stack's processes one after the other: the front and the API first (no new
+    work), then the worker (a warm shutdown finishes or hands back its jobs while Redis is
+    still there; SIGQUIT, a cold shutdown, if it takes too long), Redis last."""
+    say = say or (lambda text: print(text, flush=True))
+    rank = {name: i for i, name in enumerate(STOP_ORDER)}
+    for name, p in sorted(procs, key=lambda item: rank.get(item[0], -1)):
+        if p.poll() is None:
+            p.send_signal(signal.SIGTERM)
+            try:
+                p.wait(STOP_SECONDS.get(name, 15.0))
+            except subprocess.TimeoutExpired:
+                if name == "worker":  # the supervisor passes it on: Celery's cold shutdown
+                    p.send_signal(signal.SIGQUIT)
+                    try:
+                        p.wait(10)
+                    except subprocess.TimeoutExpired:
+                        p.kill()
+                else:
+                    p.kill()
+                p.wait()
+        say(f"stopped {name}")
+
+
+def _start_problems(args, var: Path, host: str, embedded_redis: bool) -> list[str]:
+    """Why the stack cannot start as asked, found before anything starts (empty when it can)."""
+    from cli import local_stack as ls
+
+    problems = []
+    if (why := ls.port_problem(host, args.port)) is not None:
+        problems.append(ls.busy_port_message("API", "--port", host, args.port, why))
+    if embedded_redis:
+        if args.redis_port == args.port:
+            problems.append("--port and --redis-port must differ")
+        elif (why := ls.port_problem(host, args.redis_port)) is not None:
+            problems.append(ls.busy_port_message("Redis", "--redis-port", host, args.redis_port, why,
+                                                 avoid={args.port}))
+        if ls.is_held(ls.redis_lock(var / "redis")):
+            problems.append(ls.redis_in_use_message(var / "redis"))
+    return problems
+
+
 def cmd_up(args) -> int:
+    from cli import local_stack as ls
+
+    var = (Path(args.var) if args.var else ls.default_var()).resolve()
+    host = "127.0.0.1"
+    base = f"http://{host}:{args.port}"
+    lock = ls.take_lock(ls.stack_lock(var))  # held until this process ends
+    if lock is None:
+        print(ls.another_stack_message(var), file=sys.stderr)
+        return 1
+    try:
+        redis_url = os.environ.get("REDIS_URL")
+        problems = _start_problems(args, var, host, embedded_redis=not redis_url)
+        if problems:
+            print("\n".join(problems), file=sys.stderr)
+            return 1
+        ls.write_holder(lock, {"pid": os.getpid(), "api": base, "started": time.time(),
+                               "redis_port": None if redis_url else args.redis_port})
+        return _run_stack(args, var, base, redis_url)
+    finally:
+        os.close(lock)
+
+
+def _run_stack(args, var: Path, base: str, redis_url: str | None) -> int:
+    from cli.local_stack import shown
+    from cli.supervise import die_with_parent
     from jobs.settings import Settings
 
     signal.signal(signal.SIGTERM, _raise_interrupt)  # stop the children on SIGTERM as on Ctrl-C
-
     procs: list[tuple[str, subprocess.Popen]] = []
-    redis_url = os.environ.get("REDIS_URL")
+
+    def spawn(cmd: list[str], env: dict) -> subprocess.Popen:
+        # A process group of its own: Ctrl-C in the terminal reaches only this process, which
+        # then stops the parts in order; each part gets SIGTERM if this process dies.
+        return subprocess.Popen(cmd, env=env, cwd=ROOT, preexec_fn=die_with_parent)
+
     try:
+        print(f"starting the local stack (folder {shown(var)})", flush=True)
         if not redis_url:
-            from cli.redis_server import start_redis
+            from cli.redis_server import local_url, start_redis
 
-            from cli.redis_server import local_url
-
-            procs.append(("redis", start_redis(args.redis_port, ROOT / "var" / "redis")))
-            redis_url = local_url(args.redis_port, ROOT / "var" / "redis")
+            data = var / "redis"
+            procs.append(("redis", start_redis(args.redis_port, data, preexec_fn=die_with_parent)))
+            redis_url = local_url(args.redis_port, data)
+            print(f"redis: 127.0.0.1:{args.redis_port} (data and password in {shown(data)})", flush=True)
+        else:
+            print(f"redis: {redis_url.split('@')[-1]} (REDIS_URL)", flush=True)
         env = _env(redis_url)
         check_redis(redis_url)
-        print(f"redis: {redis_url.split('@')[-1]} (password in var/redis/password)")
         subprocess.run([sys.executable, "-m", "cli.main", "warm"], env=env, check=True, cwd=ROOT)
         from cli import supervise  # restarts the worker with backoff whenever it exits
 
-        procs.append(("worker", subprocess.Popen(supervise.command(worker_command(args.concurrency)),
-                                                 env=env, cwd=ROOT)))
+        print(f"worker: starting {args.concurrency} process(es)", flush=True)
+        procs.append(("worker", spawn(supervise.command(worker_command(args.concurrency)), env)))
         from cli import front  # nginx in front of gunicorn (cli/front.py)
 
-        procs += front.start_api("127.0.0.1", args.port, lambda name, cmd: subprocess.Popen(cmd, env=env, cwd=ROOT),
-                                 front=not args.no_front)
-        base = f"http://127.0.0.1:{args.port}"
-        if not _wait_http(base + "/v1/health", 30):
-            print("the API did not come up within 30 s", file=sys.stderr)
+        print(f"api: gunicorn{'' if args.no_front else ' behind nginx'} on {base}", flush=True)
+        procs += front.start_api("127.0.0.1", args.port, lambda name, cmd: spawn(cmd, env),
+                                 front=not args.no_front, front_dir=var / "front")
+        print("waiting for the API and the worker to answer ...", flush=True)
+        if (problem := wait_ready(base, procs)) is not None:
+            print(f"the stack did not start: {problem}", file=sys.stderr)
             return 1
-        print(f"dashboard: {base}/   API: {base}/v1   OpenAPI: {base}/v1/openapi.json")
-        key = None
+        key, key_path = None, var / "local.key"
         if Settings.from_env().auth_mode != "off":
-            key = local_key(redis_url)
-            print(f"API key of the local owner 'lab' (admin; also in var/local.key): {key}")
+            key = local_key(redis_url, key_path)
         if not args.no_demo:
             submit_demo(base, key)
-        print("stack running; Ctrl-C stops every process")
+        time.sleep(0.5)  # the access-log lines of the last requests (written after the answer) land first
+        print(ready_block(base, key, key_path, args.port), flush=True)
         while all(p.poll() is None for _, p in procs):
             time.sleep(0.5)
         dead = [name for name, p in procs if p.poll() is not None]
@@ -252,19 +384,17 @@ def cmd_up(args) -> int:
     except KeyboardInterrupt:
         return 130
     finally:
-        for name, p in reversed(procs):
-            if p.poll() is None:
-                p.send_signal(signal.SIGTERM)
-        for name, p in reversed(procs):
-            try:
-                p.wait(15)
-            except subprocess.TimeoutExpired:
-                p.kill()
+        for signum in (signal.SIGINT, signal.SIGTERM):  # the stop below is bounded; let it finish
+            signal.signal(signum, signal.SIG_IGN)
+        if procs:
+            print("stopping: front, API, worker, then Redis", flush=True)
+        stop_in_order(procs)
 
 
 STACK_EXAMPLES = {
     "up": "  stifflane up                      # Redis, a worker, API and dashboard on :8750, then the demo\n"
           "  stifflane up --port 9000 --no-demo\n"
+          "  stifflane up --var var2 --port 8760 --redis-port 6391   # a second stack beside the first\n"
           "  stifflane up --no-front           # gunicorn on the port itself, without nginx\n"
           "  REDIS_URL=redis://db:6379/0 stifflane up   # use an existing Redis",
     "redis": "  stifflane redis --port 6390 --data var/redis",
@@ -291,6 +421,9 @@ def parser() -> argparse.ArgumentParser:
     up.add_argument("--redis-port", type=int, default=DEFAULT_REDIS_PORT)
     up.add_argument("--concurrency", type=int, default=os.cpu_count() or 1)
     up.add_argument("--no-demo", action="store_true", help="do not submit the demo job")
+    up.add_argument("--var", metavar="DIR", default=None,
+                    help="the stack's folder: Redis data, front, local key (default $STIFFLANE_VAR or "
+                         "the project's var/); one stack per folder")
     up.add_argument("--no-front", action="store_true",
                     help="serve gunicorn directly, without nginx in front (slow clients can stall it)")
     up.set_defaults(func=cmd_up)

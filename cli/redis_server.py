@@ -5,6 +5,10 @@ eviction, loopback only, protected mode, and a password made on first start
 (kept beside the data, mode 600; never in the repository). Data lives under
 the project's var/, private to the account: the folder is 0700 and every file in it,
 the AOF included, 0600.
+
+One server per data folder: the server holds ``redis.lock`` in it (cli/local_stack.py) for
+its whole life, and the file names its pid and port, which ``stifflane keys`` reads to find
+the local Redis.
 """
 from __future__ import annotations
 
@@ -16,6 +20,8 @@ import time
 from pathlib import Path
 
 import redis
+
+from cli import local_stack
 
 
 def redis_binary() -> str:
@@ -64,14 +70,27 @@ def private_files(data_dir: Path) -> None:
         path.chmod(0o700 if path.is_dir() else 0o600)
 
 
-def start_redis(port: int, data_dir: Path) -> subprocess.Popen:
+class DataInUse(SystemExit):
+    """Another redis-server runs on this data folder."""
+
+
+def start_redis(port: int, data_dir: Path, preexec_fn=None) -> subprocess.Popen:
     data_dir.mkdir(parents=True, exist_ok=True)
-    conf = data_dir / "redis.conf"
-    conf.write_text("\n".join(config_lines(port, data_dir.resolve())) + "\n")
-    conf.chmod(0o600)
-    private_files(data_dir)  # files of an earlier version of this stack may be 0644
-    # umask 077: every file Redis makes (AOF, its rewrites, snapshots, log) is 0600.
-    proc = subprocess.Popen([redis_binary(), str(conf)], umask=0o077)
+    lock = local_stack.take_lock(local_stack.redis_lock(data_dir))
+    if lock is None:  # never two servers on one AOF
+        raise DataInUse(local_stack.redis_in_use_message(data_dir))
+    try:
+        conf = data_dir / "redis.conf"
+        conf.write_text("\n".join(config_lines(port, data_dir.resolve())) + "\n")
+        conf.chmod(0o600)
+        private_files(data_dir)  # files of an earlier version of this stack may be 0644
+        # umask 077: every file Redis makes (AOF, its rewrites, snapshots, log) is 0600. The lock
+        # goes to the server itself: held exactly as long as it runs, whoever started it.
+        proc = subprocess.Popen([redis_binary(), str(conf)], umask=0o077, pass_fds=(lock,),
+                                preexec_fn=preexec_fn)
+        local_stack.write_holder(lock, {"pid": proc.pid, "port": port, "started": time.time()})
+    finally:
+        os.close(lock)
     client = redis.Redis(port=port, password=password(data_dir), socket_connect_timeout=0.5)
     deadline = time.time() + 15
     while time.time() < deadline:

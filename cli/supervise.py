@@ -5,8 +5,8 @@ worker that exits for any reason (a library fault after a broker crash, the memo
 its main process, a kill) is started again without anyone acting. Restarts back off
 exponentially (1 s, 2 s, 4 s ... at most 30 s) and the delay returns to 1 s once a worker has
 run for a minute. SIGTERM or SIGINT to the supervisor are passed on to the worker (Celery
-then finishes its running tasks: a warm shutdown) and the supervisor exits with the worker's
-status. The worker runs in a process group of its own; when its main process is gone, what
+then finishes its running tasks: a warm shutdown), SIGQUIT too (a cold shutdown), and the
+supervisor exits with the worker's status. The worker runs in a process group of its own; when its main process is gone, what
 is left of the group (orphaned pool children) is killed before the restart. On Linux the
 worker also receives SIGTERM if the supervisor itself dies.
 
@@ -35,8 +35,9 @@ def command(inner: list[str], name: str = "worker") -> list[str]:
     return [sys.executable, "-m", "cli.supervise", "--name", name, "--", *inner]
 
 
-def _die_with_parent() -> None:
-    """In the child before exec: own process group; SIGTERM when the supervisor dies (Linux)."""
+def die_with_parent() -> None:
+    """In the child before exec: own process group (a terminal's Ctrl-C reaches only the parent,
+    which stops its children in order); SIGTERM when the parent dies (Linux)."""
     os.setpgid(0, 0)
     try:
         import ctypes
@@ -77,12 +78,13 @@ class Supervisor:
             time.sleep(min(0.1, max(deadline - time.monotonic(), 0.0)))
 
     def run(self) -> int:
-        for signum in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP):
+        # SIGQUIT too: Celery's cold shutdown, for a stop that cannot wait for running jobs.
+        for signum in (signal.SIGTERM, signal.SIGINT, signal.SIGHUP, signal.SIGQUIT):
             signal.signal(signum, self._on_signal)
         delay = self.initial_delay
         while True:
             started = time.monotonic()
-            self.child = subprocess.Popen(self.inner, preexec_fn=_die_with_parent)
+            self.child = subprocess.Popen(self.inner, preexec_fn=die_with_parent)
             self.log(f"{self.name} started (pid {self.child.pid})")
             code = self.child.wait()
             self._reap_group(self.child.pid)

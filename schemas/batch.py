@@ -11,23 +11,24 @@ from __future__ import annotations
 
 import math
 
-from marshmallow import Schema, ValidationError, fields, validate, validates_schema
+from marshmallow import ValidationError, fields, validate, validates_schema
 
 from sweeps import sampling, summaries
-from schemas.job import FiniteFloat, JobSpecSchema, StrictInteger
+from schemas.job import Choice, FiniteFloat, JobSpecSchema, SpecSchema, StrictInteger
+from schemas.problem import close_names, did_you_mean
 
 TARGETS = ("parameters", "initial")
 MAX_SUMMARIES = 50
 MAX_GRID_POINTS = 20_001
 
 
-class RangeSchema(Schema):
+class RangeSchema(SpecSchema):
     """Evenly spaced values of one grid axis."""
 
     from_ = FiniteFloat(required=True, data_key="from")
     to = FiniteFloat(required=True)
     count = StrictInteger(required=True, validate=validate.Range(min=1, max=100_000))
-    spacing = fields.String(validate=validate.OneOf(["linear", "log"]), load_default="linear")
+    spacing = fields.String(validate=Choice(["linear", "log"]), load_default="linear")
 
     @validates_schema
     def _log_positive(self, data, **kwargs):
@@ -50,8 +51,8 @@ class AxisField(fields.Field):
         raise ValidationError("must be a list of numbers or {from, to, count, spacing}")
 
 
-class DistributionSchema(Schema):
-    distribution = fields.String(required=True, validate=validate.OneOf(sampling.DISTRIBUTIONS))
+class DistributionSchema(SpecSchema):
+    distribution = fields.String(required=True, validate=Choice(sampling.DISTRIBUTIONS))
     low = FiniteFloat()
     high = FiniteFloat()
     mean = FiniteFloat()
@@ -102,24 +103,24 @@ def _by_target(values):
     return {t: NameMap(values) for t in TARGETS}
 
 
-MemberSchema = Schema.from_dict(_by_target(FiniteFloat()), name="MemberSchema")
-GridSchema = Schema.from_dict(_by_target(AxisField()), name="GridSchema")
+MemberSchema = SpecSchema.from_dict(_by_target(FiniteFloat()), name="MemberSchema")
+GridSchema = SpecSchema.from_dict(_by_target(AxisField()), name="GridSchema")
 
 
-class SampleSchema(Schema.from_dict(_by_target(fields.Nested(DistributionSchema)), name="SampleBase")):
+class SampleSchema(SpecSchema.from_dict(_by_target(fields.Nested(DistributionSchema)), name="SampleBase")):
     count = StrictInteger(required=True, validate=validate.Range(min=1))
     seed = StrictInteger(required=True, validate=validate.Range(min=0, max=2 ** 63 - 1))
-    method = fields.String(validate=validate.OneOf(sampling.METHODS), load_default="random")
+    method = fields.String(validate=Choice(sampling.METHODS), load_default="random")
 
 
-class SummarySchema(Schema):
+class SummarySchema(SpecSchema):
     name = fields.String(validate=validate.Regexp(r"^[A-Za-z_][A-Za-z0-9_.]{0,63}$"))
-    kind = fields.String(required=True, validate=validate.OneOf(summaries.KINDS))
+    kind = fields.String(required=True, validate=Choice(summaries.KINDS))
     of = fields.String(metadata={"description": "a state or derived quantity (all kinds but event)"})
     event = fields.String(metadata={"description": "kind event: an event name of the model"})
     time = FiniteFloat(metadata={"description": "kind at: the time"})
     level = FiniteFloat(metadata={"description": "kind crossing: the threshold"})
-    when = fields.String(validate=validate.OneOf(summaries.WHEN), metadata={
+    when = fields.String(validate=Choice(summaries.WHEN), metadata={
         "description": "kind crossing: first time the value is at or 'above' / 'below' the level"})
 
     @validates_schema
@@ -133,12 +134,12 @@ class SummarySchema(Schema):
             raise ValidationError({**missing, **extra})
 
 
-class SummaryGridSchema(Schema):
+class SummaryGridSchema(SpecSchema):
     count = StrictInteger(validate=validate.Range(min=2, max=MAX_GRID_POINTS), load_default=1001)
-    spacing = fields.String(validate=validate.OneOf(["linear", "log"]), load_default="linear")
+    spacing = fields.String(validate=Choice(["linear", "log"]), load_default="linear")
 
 
-class BatchSpecSchema(Schema):
+class BatchSpecSchema(SpecSchema):
     """Batch spec v1."""
 
     label = fields.String(validate=validate.Length(max=200))
@@ -159,71 +160,113 @@ class BatchSpecSchema(Schema):
         self.max_members = max_members
         self.max_trajectory_values = max_trajectory_values
 
-    @validates_schema(skip_on_field_errors=True)
-    def _consistent(self, data, **kwargs):
-        ways = [k for k in ("members", "grid", "sample") if k in data]
-        if len(ways) != 1:
-            raise ValidationError("give exactly one of 'members', 'grid' or 'sample'", "_schema")
-        model = data["base"]["model"]
+    @validates_schema(skip_on_field_errors=False, pass_original=True)
+    def _consistent(self, data, original_data=None, **kwargs):
+        """Every problem in one answer, as for jobs: runs even when fields failed, so names are
+        read from the spec as sent (``original_data``) wherever the loaded value is missing."""
+        raw = original_data if isinstance(original_data, dict) else {}
         errors: dict = {}
-        _check_names(data, ways[0], model, errors)
-        _check_summaries(data["summaries"], model, data["base"]["span"], errors)
+        ways = [k for k in ("members", "grid", "sample") if k in raw]
+        if len(ways) > 1:
+            errors["_schema"] = [f"give exactly one of 'members', 'grid' or 'sample' (got {', '.join(ways)})"]
+        elif not ways and not any(close_names(k, ("members", "grid", "sample")) for k in raw
+                                  if k not in self.load_fields):  # else the unknown field says it
+            errors["_schema"] = ["give exactly one of 'members', 'grid' or 'sample'"]
+        base = raw.get("base") if isinstance(raw.get("base"), dict) else {}
+        model = base.get("model")
+        names = _model_names(model) if isinstance(model, dict) and isinstance(model.get("states"), dict) else None
+        span = _partial(lambda: data["base"]["span"])
+        span = span if isinstance(span, list) and len(span) == 2 and span[0] < span[1] else None
+        if names is not None:
+            if len(ways) == 1:
+                _check_names(raw, ways[0], names, errors)
+            _check_summaries(raw.get("summaries"), names, span, errors)
+        columns = _partial(lambda: summaries.columns(data["summaries"]))  # the summaries that loaded
+        if columns and len(set(columns)) != len(columns):
+            errors.setdefault("summaries", {}).setdefault("_schema", []).append(
+                "summary names must be unique; give 'name' to tell them apart")
+        n = _partial(lambda: member_count(data)) if len(ways) == 1 and ways[0] in data else None
+        if n is not None:  # (with a part of the design refused: the members of the rest)
+            if n > self.max_members:
+                errors.setdefault(ways[0], {}).setdefault("_schema", []).append(
+                    f"{n} members; at most {self.max_members} allowed")
+            values = _partial(lambda: n * _output_points(data["base"]["output"])
+                              * len(data["base"]["model"]["states"])) if data.get("trajectories") else None
+            if values is not None:
+                if values > self.max_trajectory_values:
+                    errors["trajectories"] = [
+                        f"{values} trajectory values (members x output points x states); at most "
+                        f"{self.max_trajectory_values}: fewer output points or no trajectories"]
         if errors:
             raise ValidationError(errors)
-        n = member_count(data)
-        if n > self.max_members:
-            raise ValidationError(f"{n} members; at most {self.max_members} allowed", ways[0])
-        if data["trajectories"]:
-            out = data["base"]["output"]
-            points = len(out["times"]) if "times" in out else out["count"]
-            values = n * points * len(model.get("states", {}))
-            if values > self.max_trajectory_values:
-                raise ValidationError(f"{values} trajectory values (members x output points x states); "
-                                      f"at most {self.max_trajectory_values}: fewer output points or "
-                                      "no trajectories", "trajectories")
 
 
-def _model_names(model):
-    states = set(model.get("states", {}))
-    params = set(model.get("parameters", {}))
-    derived = set(model.get("derived", {}))
-    events = {ev.get("name", f"event{k + 1}") for k, ev in enumerate(model.get("events", []))}
-    return states, params, derived, events
+def _partial(compute):
+    """A figure from loaded data that may be partial (a field refused): None when it cannot be had."""
+    try:
+        return compute()
+    except (KeyError, TypeError, AttributeError, IndexError):
+        return None
 
 
-def _check_names(data, way, model, errors):
-    states, params, _, _ = _model_names(model)
-    known = {"parameters": params, "initial": states}
-    blocks = (list(enumerate(data["members"])) if way == "members" else [(None, data[way])])
+def _output_points(output: dict) -> int:
+    return len(output["times"]) if "times" in output else output["count"]
+
+
+def _names(section) -> set:
+    return {k for k in section if isinstance(k, str)} if isinstance(section, dict) else set()
+
+
+def _model_names(model: dict):
+    """(states, parameters, derived, events) of a model as sent (any part may be malformed)."""
+    events = model.get("events")
+    events = events if isinstance(events, list) else []
+    return (_names(model.get("states")), _names(model.get("parameters")), _names(model.get("derived")),
+            {ev.get("name", f"event{k + 1}") for k, ev in enumerate(events) if isinstance(ev, dict)})
+
+
+def _check_names(raw: dict, way: str, names, errors: dict) -> None:
+    states, params, _, _ = names
+    known = {"parameters": (params, "parameter"), "initial": (states, "state")}
+    given = raw.get(way)
+    if way == "members":
+        blocks = list(enumerate(given)) if isinstance(given, list) else []
+    else:
+        blocks = [(None, given)]
     for i, block in blocks:
+        if not isinstance(block, dict):
+            continue
         for target in TARGETS:
-            for name in block[target]:
-                if name not in known[target]:
-                    what = "parameter" if target == "parameters" else "state"
+            for name in _names(block.get(target)):
+                choices, what = known[target]
+                if name not in choices:
                     node = errors.setdefault(way, {})
                     if i is not None:
                         node = node.setdefault(i, {})
-                    node.setdefault(target, {})[name] = [f"'{name}' is not a {what} of the base model"]
-    if way == "sample" and not (data["sample"]["parameters"] or data["sample"]["initial"]):
-        errors.setdefault("sample", {})["_schema"] = ["give at least one distribution"]
+                    node.setdefault(target, {})[name] = [
+                        f"'{name}' is not a {what} of the base model" + did_you_mean(name, choices)]
+    if (way == "sample" and isinstance(given, dict) and not _names(given.get("parameters"))
+            and not _names(given.get("initial"))):
+        errors.setdefault("sample", {}).setdefault("_schema", []).append("give at least one distribution")
 
 
-def _check_summaries(specs, model, span, errors):
-    states, _, derived, events = _model_names(model)
-    for i, s in enumerate(specs):
+def _check_summaries(specs, names, span, errors: dict) -> None:
+    states, _, derived, events = names
+    for i, s in enumerate(specs if isinstance(specs, list) else []):
+        if not isinstance(s, dict):
+            continue
         bad = {}
-        if "of" in s and s["of"] not in states | derived:
-            bad["of"] = [f"'{s['of']}' is not a state or derived quantity of the base model"]
-        if "event" in s and s["event"] not in events:
-            bad["event"] = [f"'{s['event']}' is not an event of the base model"]
-        if "time" in s and not span[0] <= s["time"] <= span[1]:
+        if isinstance(s.get("of"), str) and s["of"] not in states | derived:
+            bad["of"] = [f"'{s['of']}' is not a state or derived quantity of the base model"
+                         + did_you_mean(s["of"], states | derived)]
+        if isinstance(s.get("event"), str) and s["event"] not in events:
+            bad["event"] = [f"'{s['event']}' is not an event of the base model" + did_you_mean(s["event"], events)]
+        time = s.get("time")
+        if (span and isinstance(time, (int, float)) and not isinstance(time, bool) and math.isfinite(time)
+                and not span[0] <= time <= span[1]):
             bad["time"] = [f"must lie in the span {span}"]
-        if bad:
-            errors.setdefault("summaries", {})[i] = bad
-    names = summaries.columns(specs)
-    if len(set(names)) != len(names):
-        errors.setdefault("summaries", {}).setdefault("_schema", []).append(
-            "summary names must be unique; give 'name' to tell them apart")
+        for key, text in bad.items():
+            errors.setdefault("summaries", {}).setdefault(i, {}).setdefault(key, []).extend(text)
 
 
 def member_count(data: dict) -> int:

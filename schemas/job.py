@@ -14,8 +14,69 @@ from marshmallow import Schema, ValidationError, fields, validate, validates_sch
 
 from engine.choices import MACHINE_CODE_MODES, METHODS
 from schemas.model import ModelField
+from schemas.problem import close_names, did_you_mean
 
 MAX_OUTPUT_POINTS = 100_000
+UNKNOWN = "Unknown field."  # marshmallow's words, rewritten by SpecSchema
+REQUIRED = "Missing data for required field."
+
+
+class SpecSchema(Schema):
+    """Base of every spec schema (job, batch and their parts): errors say what to do.
+
+    An unknown field names the known field it is probably meant to be ('tspan': did you mean
+    'span'?) or lists the fields there are; a required field that such a near-namesake explains
+    is not reported a second time (one root cause, one error); "is required" in plain words."""
+
+    error_messages = {"type": "must be a JSON object"}
+
+    def handle_error(self, error: ValidationError, data, **kwargs):
+        messages = error.messages
+        if not isinstance(messages, dict) or not isinstance(data, dict):
+            return
+        known = [f.data_key or name for name, f in self.load_fields.items()]
+        meant = set()
+        for key, value in list(messages.items()):
+            if value == [UNKNOWN]:
+                close = close_names(key, [k for k in known if k not in data])
+                if close:
+                    meant.update(close[:1])
+                    messages[key] = [f"unknown field '{key}'" + did_you_mean(key, close)]
+                else:
+                    messages[key] = [f"unknown field '{key}'; the fields here are "
+                                     + ", ".join(f"'{k}'" for k in known)]
+        for key, value in list(messages.items()):
+            if value == [REQUIRED]:
+                if key in meant:
+                    del messages[key]  # the unknown near-namesake above says it
+                else:
+                    messages[key] = ["is required"]
+
+
+class Choice(validate.OneOf):
+    """One of fixed words; a near miss gets a did-you-mean ('radau' -> 'radau_iia_5')."""
+
+    def __call__(self, value):
+        try:
+            return super().__call__(value)
+        except ValidationError:
+            words = ", ".join(f"'{c}'" for c in self.choices)
+            close = close_names(value, self.choices) if isinstance(value, str) else []
+            if isinstance(value, str) and not close:  # a prefix: 'radau' for 'radau_iia_5'
+                close = [c for c in self.choices if c.startswith(value) and value][:3]
+            hint = (" or ".join(f"'{c}'" for c in close)) if close else ""
+            raise ValidationError(f"must be one of {words}" + (f"; did you mean {hint}?" if hint else ""))
+
+
+def is_bare_model(spec) -> bool:
+    """A model posted where a job spec belongs: states and equations at the top, no 'model'."""
+    return (isinstance(spec, dict) and "model" not in spec and "states" in spec
+            and any(k in spec for k in ("ddt", "reactions", "parameters", "derived", "events", "title")))
+
+
+BARE_MODEL = ("this is a model, not a job spec: put it under \"model\" and say the time span to "
+              "integrate over, e.g. {\"model\": {\"states\": ..., \"ddt\": ...}, \"span\": [0, 10]} "
+              "(optional: output, tolerance, method; examples/jobs/ has complete specs)")
 
 
 class FiniteFloat(fields.Float):
@@ -107,12 +168,12 @@ class AbsoluteTolerance(fields.Field):
                                   "numbers keyed by state name (\"*\" for the rest)")
 
 
-class OutputSchema(Schema):
+class OutputSchema(SpecSchema):
     """Where results are reported: explicit times, or a count with spacing."""
 
     times = fields.List(FiniteFloat(), validate=validate.Length(min=1, max=MAX_OUTPUT_POINTS))
     count = StrictInteger(validate=validate.Range(min=2, max=MAX_OUTPUT_POINTS))
-    spacing = fields.String(validate=validate.OneOf(["linear", "log"]), load_default="linear")
+    spacing = fields.String(validate=Choice(["linear", "log"]), load_default="linear")
     first = FiniteFloat(validate=validate.Range(min=0, min_inclusive=False),
                         metadata={"description": "log spacing: first output time after the start, "
                                                  "as an offset from span[0] (default 1e-6 of the span)"})
@@ -125,7 +186,7 @@ class OutputSchema(Schema):
             raise ValidationError("must be strictly increasing", "times")
 
 
-class ToleranceSchema(Schema):
+class ToleranceSchema(SpecSchema):
     rtol = FiniteFloat(validate=validate.Range(min=1e-13, max=0.1), load_default=1e-6,
                        metadata={"description": "relative tolerance, 1e-13 to 0.1"})
     atol = AbsoluteTolerance(load_default=1e-10, metadata={
@@ -133,12 +194,12 @@ class ToleranceSchema(Schema):
         "oneOf": [{"type": "number"}, {"type": "object", "additionalProperties": {"type": "number"}}]})
 
 
-class LimitsSchema(Schema):
+class LimitsSchema(SpecSchema):
     max_steps = StrictInteger(validate=validate.Range(min=1, max=100_000_000), load_default=1_000_000)
     max_wall_seconds = FiniteFloat(validate=validate.Range(min=0.01, max=86_400), load_default=600.0)
 
 
-class JobSpecSchema(Schema):
+class JobSpecSchema(SpecSchema):
     """Job spec v1."""
 
     label = fields.String(validate=validate.Length(max=200), metadata={"description": "free text shown in lists"})
@@ -153,9 +214,9 @@ class JobSpecSchema(Schema):
                        metadata={"description": "[t_start, t_end], t_end > t_start"})
     output = fields.Nested(OutputSchema, load_default=lambda: {"count": 101, "spacing": "linear"})
     tolerance = fields.Nested(ToleranceSchema, load_default=lambda: ToleranceSchema().load({}))
-    method = fields.String(validate=validate.OneOf(METHODS), load_default="auto")
+    method = fields.String(validate=Choice(METHODS), load_default="auto")
     machine_code = fields.String(
-        validate=validate.OneOf(MACHINE_CODE_MODES), load_default="auto",
+        validate=Choice(MACHINE_CODE_MODES), load_default="auto",
         metadata={"description": "translate the model's right-hand side and Jacobian into machine "
                                  "code (about 5x faster per evaluation; 0.1-0.5 s to compile once per "
                                  "model, kept on disk): 'auto' compiles for batches and for models "
@@ -163,6 +224,13 @@ class JobSpecSchema(Schema):
     limits = fields.Nested(LimitsSchema, load_default=lambda: LimitsSchema().load({}))
     nonnegative = StrictBoolean(load_default=False,
                                  metadata={"description": "keep every state >= 0 (concentrations)"})
+
+    def handle_error(self, error: ValidationError, data, **kwargs):
+        if is_bare_model(data) and isinstance(error.messages, dict):
+            error.messages.clear()  # one root cause instead of a line per model section
+            error.messages["_schema"] = [BARE_MODEL]
+            return
+        super().handle_error(error, data, **kwargs)
 
     @validates_schema(skip_on_field_errors=False)
     def _consistent(self, data, **kwargs):
@@ -180,7 +248,7 @@ class JobSpecSchema(Schema):
         if span and span[1] > span[0] and out.get("times"):
             if out["times"][0] < span[0] or out["times"][-1] > span[1]:
                 errors.setdefault("output", {})["times"] = [f"all output times must lie in the span {span}"]
-        if span and out.get("first") is not None and out["first"] >= span[1] - span[0]:
+        if span and span[1] > span[0] and out.get("first") is not None and out["first"] >= span[1] - span[0]:
             errors.setdefault("output", {})["first"] = ["must be smaller than the span's length"]
         model = data.get("model")
         if isinstance(model, dict):
@@ -188,17 +256,19 @@ class JobSpecSchema(Schema):
             params = set(model.get("parameters") or {}) if isinstance(model.get("parameters"), dict) else set()
             for name in data.get("initial") or {}:
                 if name not in states:
-                    errors.setdefault("initial", {})[name] = [f"'{name}' is not a state of the model"]
+                    errors.setdefault("initial", {})[name] = [f"'{name}' is not a state of the model"
+                                                              + did_you_mean(name, states)]
             for name in data.get("parameters") or {}:
                 if name not in params:
-                    errors.setdefault("parameters", {})[name] = [f"'{name}' is not a parameter of the model"]
+                    errors.setdefault("parameters", {})[name] = [f"'{name}' is not a parameter of the model"
+                                                                 + did_you_mean(name, params)]
             tolerance = data.get("tolerance")
             atol = tolerance.get("atol") if isinstance(tolerance, dict) else None
             if isinstance(atol, dict):
                 for name in atol:
                     if name != "*" and name not in states:
                         errors.setdefault("tolerance", {}).setdefault("atol", {})[name] = [
-                            f"'{name}' is not a state of the model"]
+                            f"'{name}' is not a state of the model" + did_you_mean(name, states)]
         if errors:
             raise ValidationError(errors)
 

@@ -116,7 +116,8 @@ class BatchProgressSchema(Schema):
 class BatchViewSchema(Schema):
     id = fields.String(required=True)
     state = fields.String(required=True, metadata={"description": STATE_DESCRIPTION})
-    title = fields.String()
+    label = fields.String(metadata={"description": "the batch's label (or its base job's, or the "
+                                                   "model's title)"})
     created_at = fields.String(allow_none=True, metadata={"description": "RFC 3339 UTC"})
     started_at = fields.String(allow_none=True)
     finished_at = fields.String(allow_none=True)

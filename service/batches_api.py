@@ -55,7 +55,7 @@ def _links(batch_id: str) -> dict:
 
 def _view(rec: BatchRecord) -> dict:
     return json_safe({
-        "id": rec.id, "state": rec.state, "title": rec.title, "created_at": _iso(rec.created),
+        "id": rec.id, "state": rec.state, "label": rec.title, "created_at": _iso(rec.created),
         "started_at": _iso(rec.started), "finished_at": _iso(rec.finished),
         "cancel_requested": rec.cancel_requested, "chunk_size": rec.chunk_size, "chunks": rec.n_chunks,
         "progress": rec.progress(), "columns": rec.columns, "links": _links(rec.id)})
@@ -119,9 +119,9 @@ def _create(body: dict):
     columns = {"values": [sampling.column_label(t, n) for t, n in design["columns"]],
                "summaries": summaries.columns(spec["summaries"])}
     size = chunk_size_for(total, spec.get("chunk_size") or settings.batch_chunk_size, settings.batch_max_chunks)
-    title = spec.get("label") or spec["base"].get("label") or spec["base"]["model"].get("title") or "untitled"
+    label = spec.get("label") or spec["base"].get("label") or spec["base"]["model"].get("title") or "untitled"
     store = _store()
-    rec = store.create(schema.dump(spec), design, columns, total, size, title[:200], current_owner())
+    rec = store.create(schema.dump(spec), design, columns, total, size, label[:200], current_owner())
     for chunk in store.next_chunks(rec.id):  # the record is written first: it is the truth
         _ctx().publisher.publish_chunk(rec.id, chunk)
     return _json({"id": rec.id, "state": rec.state, "members": total, "links": _links(rec.id)}, 202,

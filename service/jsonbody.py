@@ -5,6 +5,7 @@ import json
 
 from flask import Flask, current_app, request
 
+from schemas.problem import json_error_detail
 from service.problems import ApiProblem, too_large
 
 
@@ -27,7 +28,7 @@ def _no_duplicates(pairs):
     out = {}
     for key, value in pairs:
         if key in out:
-            raise ValueError(f"duplicate key {key!r}")
+            raise ValueError(f"the key {key!r} appears twice in one object; give each key once")
         out[key] = value
     return out
 
@@ -57,11 +58,12 @@ def read_json_object() -> dict:
     try:
         text = raw.decode("utf-8")
         body = json.loads(text, parse_constant=_no_constants, parse_int=_integer, object_pairs_hook=_no_duplicates)
-    except UnicodeDecodeError:
-        raise ApiProblem(400, "Malformed JSON", "the body is not UTF-8 text", kind="malformed-json")
-    except json.JSONDecodeError as e:
-        raise ApiProblem(400, "Malformed JSON", f"line {e.lineno} column {e.colno}: {e.msg}",
-                         kind="malformed-json")
+    except UnicodeDecodeError as e:
+        raise ApiProblem(400, "Malformed JSON", f"the body is not UTF-8 text (byte {e.start} cannot be "
+                         "read); send JSON as UTF-8", kind="malformed-json")
+    except json.JSONDecodeError as e:  # a plain sentence with line and column, not the parser's words
+        raise ApiProblem(400, "Malformed JSON", json_error_detail(e), kind="malformed-json",
+                         line=e.lineno, column=e.colno)
     except (ValueError, RecursionError) as e:
         raise ApiProblem(400, "Malformed JSON", str(e)[:300], kind="malformed-json")
     if not isinstance(body, dict):

@@ -92,13 +92,24 @@ def _fresh_clients(**_):
     _clients.clear()  # never share a socket across fork
 
 
+def concurrency_of(consumer) -> int | None:
+    """The pool processes of this worker (-c). worker_ready is sent by the Consumer, whose
+    WorkController (``controller``) holds the number; the pool knows it too."""
+    for value in (getattr(getattr(consumer, "controller", None), "concurrency", None),
+                  getattr(getattr(consumer, "pool", None), "num_processes", None),
+                  getattr(consumer, "concurrency", None)):
+        if isinstance(value, int) and not isinstance(value, bool) and value > 0:
+            return value
+    return None
+
+
 @signals.worker_ready.connect
 def _start_housekeeping(sender=None, **_):
     global _housekeeping
     from worker.run_batch import reconcile_batches
 
     info = {"name": f"{socket.gethostname()}:{os.getpid()}", "pid": os.getpid(), "started": time.time(),
-            "concurrency": getattr(sender, "concurrency", None)}
+            "concurrency": concurrency_of(sender)}
     _housekeeping = Periodic([partial(beat, store(), info),
                               partial(reconcile_jobs, store(), publish_job),
                               partial(reconcile_batches, batch_store(), publish_chunk),

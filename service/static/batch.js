@@ -14,8 +14,8 @@
 
   function showBatch() {
     const p = batch.progress || {};
-    document.title = 'Stifflane · ' + (batch.title || batch.id);
-    $('title').textContent = batch.title || 'untitled';
+    document.title = 'Stifflane · ' + (batch.label || batch.id);
+    $('title').textContent = batch.label || 'untitled';
     $('batchid').textContent = batch.id;
     $('state').innerHTML = stateBadge(batch.state);
     $('cancel').classList.toggle('hidden', !ACTIVE.has(batch.state) || batch.cancel_requested);

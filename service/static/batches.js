@@ -7,7 +7,7 @@
     const p = b.progress || {};
     const pct = (100 * (p.fraction || 0)).toFixed(1);
     return `<tr data-id="${esc(b.id)}">
-      <td><a href="/batches/${encodeURIComponent(b.id)}">${esc(b.title || 'untitled')}</a><div class="muted mono">${esc(b.id)}</div></td>
+      <td><a href="/batches/${encodeURIComponent(b.id)}">${esc(b.label || 'untitled')}</a><div class="muted mono">${esc(b.id)}</div></td>
       <td>${stateBadge(b.state)}</td>
       <td><div class="bar" title="${pct}%"><i data-w="${pct}"></i></div></td>
       <td class="num">${num(p.total)}</td><td class="num">${num(p.failed)}</td>

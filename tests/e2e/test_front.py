@@ -54,7 +54,7 @@ def test_a_body_over_the_limit_is_413_problem_json_stating_the_limit(stack, chun
     r = requests.post(stack.base + "/v1/jobs", data=data, timeout=30,
                       headers={"Content-Type": "application/json"})
     assert r.status_code == 413 and r.headers["Content-Type"] == PROBLEM
-    assert "2097152 bytes" in r.json()["detail"]
+    assert "2097152 bytes" in r.json()["detail"] and r.json()["limit_bytes"] == 2097152  # as the API says it
 
 
 def test_a_chunked_body_under_the_limit_reaches_the_api_whole(stack):

@@ -257,3 +257,23 @@ def test_an_owners_batches_share_one_window_of_chunks_in_flight(bclient, bstore)
     assert len(bstore.next_chunks(other.id)) == window
     # the first batch publishes no more until its in-flight chunks drop below the owner's share
     assert bstore.next_chunks(first) == []
+
+
+def test_the_label_submitted_comes_back_as_label_in_every_view(bclient):
+    """The batch views use the job spec's word for the free text a client gives: `label`."""
+    batch_id = submit(bclient, grid_batch([1.0, 2.0])).get_json()["id"]
+    view = bclient.get(f"/v1/batches/{batch_id}").get_json()
+    assert view["label"] == "decay grid" and "title" not in view
+    (listed,) = [b for b in bclient.get("/v1/batches").get_json()["items"] if b["id"] == batch_id]
+    assert listed["label"] == "decay grid" and "title" not in listed
+    unlabelled = dict(grid_batch([1.0]))
+    del unlabelled["label"]
+    other = submit(bclient, unlabelled).get_json()["id"]
+    assert bclient.get(f"/v1/batches/{other}").get_json()["label"] == MODEL["title"]  # as for jobs
+    r = submit(bclient, dict(grid_batch([1.0]), title="a second name"))
+    assert r.status_code == 422 and r.get_json()["errors"][0]["pointer"] == "/title"
+
+
+def test_the_openapi_batch_view_names_label_not_title(bclient):
+    props = bclient.get("/v1/openapi.json").get_json()["components"]["schemas"]["BatchView"]["properties"]
+    assert "label" in props and "title" not in props
