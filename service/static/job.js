@@ -102,7 +102,7 @@
     if (job.state === 'queued') w.textContent = 'The run is queued; its plots appear here once it has computed something.';
     else if (job.state === 'running') w.textContent = 'The run has started; its plots appear here with its first snapshot, within a few seconds.';
     else if (job.state === 'succeeded') w.textContent = 'Loading the result…';
-    else if (noResult) w.textContent = 'Nothing to plot: the run ended before the solver computed anything.';
+    else if (noResult) w.textContent = 'Nothing to plot: the server kept no result of this run.';
     else w.textContent = 'Loading what the run computed…';
   }
 
