@@ -244,10 +244,11 @@
 
   function events() { return (result.events || []).filter(e => e && e.t != null); }
 
-  // The x range of a partial result: the whole span, so the part not reached shows.
+  // The x range of a run that stopped early: the whole span, so the part not reached shows
+  // (a live snapshot keeps the range it has: the progress bar shows how far it is).
   function partialX() {
     const s = spanOf(), te = tEnd();
-    if (!isPartial() || te == null) return {};
+    if (!isPartial() || te == null || ACTIVE.has(result.state || job.state)) return {};
     const lo = s ? s[0] : (result.times || [0])[0];
     return { xrange: [lo, te], unsolvedFrom: tReached() };
   }
@@ -323,6 +324,9 @@
     if (need == null || took == null) return '';
     const N = num(Math.ceil(need)), T = num(took);
     const used = rep.methods_used || [];
+    if (ACTIVE.has((result && result.state) || job.state))
+      return `So far ${T} accepted steps` + (used.length ? ` with ${used.join(' and ')}` : '') +
+        `; an explicit method alone would have needed about ${N} for the part solved. The verdict comes when the run ends.`;
     const implicit = used.filter(m => P.IMPLICIT.has(m));
     const explicit = used.filter(m => !P.IMPLICIT.has(m));
     if (implicit.length && need > took) {

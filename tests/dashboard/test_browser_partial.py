@@ -96,7 +96,8 @@ def test_a_failed_run_on_the_live_stack(browser, stack):
     page = browser.page
     page.goto(f"{stack.base}/jobs/{failed_id}")
     page.wait_for_selector(".state.failed", timeout=30_000)
-    page.wait_for_function("() => !document.querySelector('#waiting .empty').textContent.startsWith('Loading')",
+    page.wait_for_function("() => document.querySelector('#traj .uplot') || "
+                           "document.querySelector('#waiting .empty').textContent.startsWith('Nothing to plot')",
                            timeout=30_000)
     assert page.inner_text("main").count(failed["message"][:40]) == 1
     if result_of(stack, failed_id).status_code == 409:
@@ -131,6 +132,7 @@ def test_contract_a_running_job_draws_its_live_snapshot_and_refreshes_it(browser
     first = page.evaluate("() => SLJob.charts().traj.data[0].length")
     page.wait_for_function(f"() => SLJob.charts().traj.data[0].length > {first}", timeout=30_000)  # refreshed with the poll
     assert page.is_visible("#steps .uplot") and page.is_visible("#progress-card")
+    assert page.inner_text("#steps-note").startswith("So far ")
     assert not page.is_visible("#waiting")
     browser.shot("job-live")
     served["state"] = "cancelled"
@@ -139,6 +141,7 @@ def test_contract_a_running_job_draws_its_live_snapshot_and_refreshes_it(browser
     page.wait_for_function("() => document.getElementById('partial-note').textContent.startsWith('partial:')",
                            timeout=30_000)
     assert "was cancelled" in page.inner_text("#partial-note")
+    assert page.evaluate("() => SLJob.charts().traj.scales.x.max") == 1.0e7  # the whole span once it stopped
     assert "cancelled at" in page.inner_text("#progress-text")
     assert browser.errors == []
 
