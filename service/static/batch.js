@@ -12,18 +12,41 @@
 
   const $ = id => document.getElementById(id);
 
+  // Members by how they ended: run (succeeded, failed, lost) and never run (cancelled).
+  function counts(p) {
+    const total = p.total || 0, ok = p.succeeded || 0, failed = p.failed || 0, lost = p.lost || 0, cancelled = p.cancelled || 0;
+    const left = p.remaining != null ? p.remaining : Math.max(0, total - ok - failed - lost - cancelled);
+    return { total, ok, failed, lost, cancelled, left, run: ok + failed + lost };
+  }
+
+  // The progress bar in segments: succeeded, failed, lost, cancelled; what is left stays empty.
+  function segments(c) {
+    const w = n => (c.total ? (100 * n / c.total).toFixed(2) : '0');
+    return [['ok', c.ok], ['fail', c.failed], ['lost', c.lost], ['cancel', c.cancelled]]
+      .filter(([, n]) => n > 0).map(([cls, n]) => `<i class="${cls}" data-w="${w(n)}" title="${num(n)} ${cls}"></i>`).join('');
+  }
+
   function showBatch() {
-    const p = batch.progress || {};
-    document.title = 'Stifflane · ' + (batch.label || batch.id);
-    $('title').textContent = batch.label || 'untitled';
+    const p = batch.progress || {}, c = counts(p), active = ACTIVE.has(batch.state);
+    const title = batch.label;
+    document.title = 'Stifflane · ' + (title || batch.id);
+    $('title').textContent = title || 'untitled';
     $('batchid').textContent = batch.id;
     $('state').innerHTML = stateBadge(batch.state);
-    $('cancel').classList.toggle('hidden', !ACTIVE.has(batch.state) || batch.cancel_requested);
-    $('progress-bar').style.width = (100 * (p.fraction || 0)).toFixed(1) + '%';
-    $('progress-text').textContent = `${num(p.succeeded + p.failed)} of ${num(p.total)} members done — ` +
-      `${num(p.succeeded)} succeeded, ${num(p.failed)} failed` + (p.cancelled ? `, ${num(p.cancelled)} cancelled` : '');
+    $('cancel').classList.toggle('hidden', !active || batch.cancel_requested);
+    $('progress-bar').innerHTML = segments(c);
+    $('progress-text').textContent = `${num(c.run)} of ${num(c.total)} members run — ${num(c.ok)} succeeded, ${num(c.failed)} failed` +
+      (c.lost ? `, ${num(c.lost)} lost` : '') + (c.cancelled ? `; ${num(c.cancelled)} cancelled (never ran)` : '') +
+      (active || c.left ? `; ${num(c.left)} left` : '');
+    $('seg-legend').innerHTML = [['ok', 'succeeded', c.ok], ['fail', 'failed', c.failed], ['lost', 'lost', c.lost],
+      ['cancel', 'cancelled', c.cancelled], ['left', 'left', c.left]].filter(([, , n]) => n > 0)
+      .map(([cls, what, n]) => `<span><i class="${cls}"></i>${esc(what)} ${num(n)}</span>`).join('');
     $('rate').textContent = (p.members_per_second ? num(p.members_per_second, 3) + ' members/s' : '') +
-      (ACTIVE.has(batch.state) && p.eta_seconds != null ? ' · about ' + duration(p.eta_seconds) + ' left' : '');
+      (active && p.eta_seconds != null ? ' · about ' + duration(p.eta_seconds) + ' left' : '');
+    const bad = c.failed + c.lost;
+    $('notices').innerHTML = bad && c.run ? `<div class="notice bad">${num(bad)} of ${num(c.run)} members that ran ` +
+      `(${num(100 * bad / c.run, 3)}%) failed: they are the red crosses along the foot of the scatter plot, ` +
+      `and listed with their messages below.</div>` : '';
   }
 
   async function poll() {
@@ -60,16 +83,36 @@
     fill($('scatter-x'), valueNames().length ? valueNames() : ['index']);
   }
 
+  // A member that ran and did not succeed (cancelled members never ran; expired rows are unknown).
+  function failedAt(i) { return !['succeeded', 'cancelled', 'expired'].includes(table.outcome[i]); }
+
   function drawScatter() {
     P.destroy(charts.scatter);
+    charts.scatter = null;
     const xn = $('scatter-x').value, yn = $('scatter-y').value;
     if (!table || !table.index.length || !yn) return;
-    const ok = table.outcome.map(o => o === 'succeeded');
     const xs = col(xn), ys = col(yn);
-    const pts = xs.map((x, i) => [x, ok[i] ? ys[i] : null]).filter(p => p[0] != null).sort((a, b) => a[0] - b[0]);
-    charts.scatter = P.lineChart($('scatter'), { x: pts.map(p => p[0]), xlog: view.scx === 'log', ylog: view.scy === 'log',
-      series: [{ label: yn, values: pts.map(p => p[1]), color: P.PALETTE[0], points: true, scatter: true }],
-      height: 360, xlabel: xn, ylabel: yn, pad: 0.04 });
+    const pts = [], rug = [];
+    xs.forEach((x, i) => {
+      if (x == null) return;
+      if (table.outcome[i] === 'succeeded') pts.push([x, ys[i]]);
+      else if (failedAt(i)) {
+        if (ys[i] != null) pts.push([x, null, ys[i]]);  // a failed member with a value: its own series
+        else { rug.push(x); pts.push([x, null]); }   // none: a cross on the foot, in the x range
+      }
+    });
+    pts.sort((a, b) => a[0] - b[0]);
+    const failedPts = pts.filter(p => p.length === 3).length;
+    if (!pts.some(p => p[1] != null || p[2] != null)) { $('scatter').innerHTML = '<div class="empty">No member has a value for this summary yet.</div>'; }
+    const series = [{ label: yn, values: pts.map(p => p[1]), color: P.PALETTE[0], points: true, scatter: true }];
+    if (failedPts) series.push({ label: 'failed members', values: pts.map(p => (p.length === 3 ? p[2] : null)),
+      color: '#a3243b', points: true, scatter: true });
+    else charts.scatter = P.lineChart($('scatter'), { x: pts.map(p => p[0]), xlog: view.scx === 'log', ylog: view.scy === 'log',
+      series, height: 360, xlabel: xn, ylabel: yn, pad: 0.04, rug });
+    const nFail = table.outcome.filter((_, i) => failedAt(i)).length;
+    $('scatter-note').textContent = nFail ? `× ${num(nFail)} failed member${nFail === 1 ? '' : 's'}` +
+      (rug.length ? `: ${num(rug.length)} without a value for ${yn}, marked by red crosses along the foot of the plot at their ${xn}` : '') +
+      (failedPts ? `; ${num(failedPts)} with a value, drawn in red` : '') + '.' : '';
   }
 
   function histogram(values) {
@@ -96,6 +139,8 @@
       charts.hists.push(P.barChart(box, { x: h.centers, y: h.counts, label: 'members', xlabel: n, height: 170,
         color: P.PALETTE[(k + 1) % P.PALETTE.length] }));
     });
+    const nFail = table.outcome.filter((_, i) => failedAt(i)).length;
+    $('hists-note').textContent = nFail ? `Counts of the members that succeeded; ${num(nFail)} failed member${nFail === 1 ? '' : 's'} not counted.` : '';
   }
 
   function drawStats(stats) {
@@ -120,7 +165,7 @@
       drawMembers();
     });
     let idx = table.index.map((_, i) => i);
-    if ($('only-failed').checked) idx = idx.filter(i => table.outcome[i] !== 'succeeded');
+    if ($('only-failed').checked) idx = idx.filter(failedAt);
     const key = col(sort.col);
     idx.sort((a, b) => {
       const va = key[a], vb = key[b];
@@ -130,13 +175,13 @@
     });
     const shown = idx.slice(0, MAX_ROWS);
     $('members').querySelector('tbody').innerHTML = shown.map(i => '<tr>' + cols.map(c => c === 'outcome'
-      ? `<td class="${table.outcome[i] === 'succeeded' ? '' : 'bad'}" title="${esc(table.message[i] || '')}">${esc(table.outcome[i])}</td>`
+      ? `<td class="${failedAt(i) ? 'bad' : table.outcome[i] === 'succeeded' ? '' : 'muted'}" title="${esc(table.message[i] || '')}">${esc(table.outcome[i])}</td>`
       : `<td class="num">${num(col(c)[i])}</td>`).join('') + '</tr>').join('');
     $('rows-note').textContent = idx.length > MAX_ROWS ? ` showing ${MAX_ROWS} of ${idx.length} rows (download the table for all)` : ` ${idx.length} rows`;
   }
 
   function drawFailed() {
-    const bad = table.index.map((m, i) => [m, table.outcome[i], table.message[i]]).filter(r => r[1] !== 'succeeded');
+    const bad = table.index.map((m, i) => [m, table.outcome[i], table.message[i], i]).filter(r => failedAt(r[3]));
     if (!bad.length) return;
     $('failed').innerHTML = '<ul class="problems">' + bad.slice(0, 100).map(([m, o, msg]) =>
       `<li><b>member ${esc(m)}</b> ${esc(o)}<div>${esc(msg || '')}</div></li>`).join('') + '</ul>' +

@@ -41,6 +41,8 @@ class Browser:
         url = (msg.location or {}).get("url", "")
         if "/v1/spec-checks" in url and "422" in msg.text:
             return  # the submit page's check of a spec that is invalid on purpose
+        if "/result" in url and "409" in msg.text:
+            return  # a job page asking for a running job's snapshot before there is one (result-not-ready)
         self.errors.append(f"{msg.text} ({url})")
 
     def shot(self, name: str) -> Path:
