@@ -199,6 +199,27 @@ class LimitsSchema(SpecSchema):
     max_wall_seconds = FiniteFloat(validate=validate.Range(min=0.01, max=86_400), load_default=600.0)
 
 
+MAX_SENSITIVITIES = 100  # parameters and initial values together
+
+
+class SensitivitySchema(SpecSchema):
+    parameters = fields.List(fields.String(), load_default=list, validate=validate.Length(max=MAX_SENSITIVITIES),
+                             metadata={"description": "parameters θ whose sensitivities dy/dθ the result carries"})
+    initial = fields.List(fields.String(), load_default=list, validate=validate.Length(max=MAX_SENSITIVITIES),
+                          metadata={"description": "states whose initial values are θ too (labelled init:<state>)"})
+    error_control = StrictBoolean(load_default=True, metadata={
+        "description": "let the sensitivities steer the step size like the states (default); false "
+                       "carries them along at the states' steps"})
+
+    @validates_schema(skip_on_field_errors=True)
+    def _some(self, data, **kwargs):
+        if not data["parameters"] and not data["initial"]:
+            raise ValidationError("name at least one parameter or initial value", "parameters")
+        if len(data["parameters"]) + len(data["initial"]) > MAX_SENSITIVITIES:
+            raise ValidationError(f"at most {MAX_SENSITIVITIES} parameters and initial values together",
+                                  "parameters")
+
+
 class JobSpecSchema(SpecSchema):
     """Job spec v1."""
 
@@ -224,6 +245,9 @@ class JobSpecSchema(SpecSchema):
     limits = fields.Nested(LimitsSchema, load_default=lambda: LimitsSchema().load({}))
     nonnegative = StrictBoolean(load_default=False,
                                  metadata={"description": "keep every state >= 0 (concentrations)"})
+    sensitivity = fields.Nested(SensitivitySchema, metadata={
+        "description": "forward sensitivities dy/dθ at the output times, raw and normalised "
+                       "(d ln y / d ln θ), for the named parameters and initial values"})
 
     def handle_error(self, error: ValidationError, data, **kwargs):
         if is_bare_model(data) and isinstance(error.messages, dict):
@@ -262,6 +286,17 @@ class JobSpecSchema(SpecSchema):
                 if name not in params:
                     errors.setdefault("parameters", {})[name] = [f"'{name}' is not a parameter of the model"
                                                                  + did_you_mean(name, params)]
+            sens = data.get("sensitivity")
+            if isinstance(sens, dict):
+                for section, table, what in (("parameters", params, "parameter"), ("initial", states, "state")):
+                    names = sens.get(section) if isinstance(sens.get(section), list) else []
+                    for pos, name in enumerate(names):
+                        if isinstance(name, str) and name not in table:
+                            errors.setdefault("sensitivity", {}).setdefault(section, {})[pos] = [
+                                f"'{name}' is not a {what} of the model" + did_you_mean(name, table)]
+                        elif isinstance(name, str) and name in names[:pos]:
+                            errors.setdefault("sensitivity", {}).setdefault(section, {})[pos] = [
+                                f"'{name}' is named twice"]
             tolerance = data.get("tolerance")
             atol = tolerance.get("atol") if isinstance(tolerance, dict) else None
             if isinstance(atol, dict):

@@ -70,6 +70,10 @@ class ResultSchema(Schema):
     model = fields.Dict(metadata={"description": "prepared-model facts: names, stoichiometry, conservation laws"})
     units = fields.Dict(keys=fields.String(), values=fields.String(), metadata={
         "description": "the model's unit labels: state or parameter name -> unit (names without one are absent)"})
+    sensitivity = fields.Dict(metadata={
+        "description": "present when the spec asked for sensitivities: wrt (labels: parameter names and "
+                       "init:<state>), values (θ), error_control, raw {state: {label: [dy/dθ at each time]}}, "
+                       "normalised {state: {label: [d ln y / d ln θ]}} (null where y or θ is 0)"})
     caution = fields.String()
 
 

@@ -74,7 +74,37 @@ def as_json(job_id: str, blob: bytes, state: str | None = None, outcome: str | N
         "derived": {name: finite(aux[:, i]) for i, name in enumerate(meta["aux_names"])},
         "events": meta.get("events", []), "report": meta.get("report", {}), "model": meta.get("model", {}),
         "units": dict(meta["units"]), "caution": CAUTION,
+        **({"sensitivity": sens} if (sens := _sensitivity_json(meta, arrays)) is not None else {}),
     })
+
+
+def sensitivities(meta: dict, arrays: dict):
+    """(labels, raw (k, n, m), normalised (k, n, m)) of a result that carries sensitivities,
+    else None. Normalised: d ln y_i / d ln θ_j = raw * θ_j / y_i, NaN where y_i or θ_j is 0."""
+    info = meta.get("sensitivity")
+    if not info or "sensitivity" not in arrays:
+        return None
+    raw, y = arrays["sensitivity"], arrays["y"]
+    theta = np.asarray(info["theta"], dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        norm = raw * theta[None, None, :] / y[:, :, None]
+    norm[(y[:, :, None] == 0) | (theta[None, None, :] == 0) | ~np.isfinite(norm)] = np.nan
+    return list(info["wrt"]), raw, norm
+
+
+def _sensitivity_json(meta: dict, arrays: dict) -> dict | None:
+    found = sensitivities(meta, arrays)
+    if found is None:
+        return None
+    labels, raw, norm = found
+    finite = result_blob.json_safe
+    names = meta["state_names"]
+    return {"wrt": labels, "values": dict(zip(labels, finite(list(meta["sensitivity"]["theta"])))),
+            "error_control": bool(meta["sensitivity"].get("error_control", True)),
+            "raw": {name: {label: finite(raw[:, i, j]) for j, label in enumerate(labels)}
+                    for i, name in enumerate(names)},
+            "normalised": {name: {label: finite(norm[:, i, j]) for j, label in enumerate(labels)}
+                           for i, name in enumerate(names)}}
 
 
 def partial_line(meta: dict) -> str:
@@ -93,14 +123,26 @@ def _label(name: str, unit: str) -> str:
 
 def as_csv(blob: bytes, outcome: str | None = None, message: str | None = None) -> str:
     meta, arrays = decode(blob, outcome, message)
-    table = np.column_stack([arrays["t"], arrays["y"], arrays["aux"]]) if len(arrays["t"]) else []
+    columns = [arrays["t"], arrays["y"], arrays["aux"]]
+    extra: list[str] = []
+    found = sensitivities(meta, arrays)
+    if found is not None:  # raw columns d(y)/d(θ), then normalised dln(y)/dln(θ), θ by θ
+        labels, raw, norm = found
+        k = len(arrays["t"])
+        for j, label in enumerate(labels):
+            columns += [raw[:, :, j].reshape(k, -1)]
+            extra += [f"d({name})/d({label})" for name in meta["state_names"]]
+        for j, label in enumerate(labels):
+            columns += [norm[:, :, j].reshape(k, -1)]
+            extra += [f"dln({name})/dln({label})" for name in meta["state_names"]]
+    table = np.column_stack(columns) if len(arrays["t"]) else []
     buf = io.StringIO()
     buf.write(CAUTION_CSV_LINE + "\n")
     if meta["partial"]:
         buf.write(partial_line(meta) + "\n")
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(["t", *map(_label, meta["state_names"], unit_list(meta, "state_names")),
-                     *map(_label, meta["aux_names"], unit_list(meta, "aux_names"))])
+                     *map(_label, meta["aux_names"], unit_list(meta, "aux_names")), *extra])
     for row in table:
         writer.writerow([repr(float(v)) for v in row])
     return buf.getvalue()
@@ -110,7 +152,10 @@ def as_npz(blob: bytes, outcome: str | None = None, message: str | None = None) 
     meta, arrays = decode(blob, outcome, message)
     buf = io.BytesIO()
     t_reached = np.nan if meta["t_reached"] is None else float(meta["t_reached"])
-    np.savez_compressed(buf, t=arrays["t"], y=arrays["y"], derived=arrays["aux"],
+    found = sensitivities(meta, arrays)
+    sens = {} if found is None else {"sensitivity_wrt": np.array(found[0], dtype=str),
+                                     "sensitivity": found[1], "sensitivity_normalised": found[2]}
+    np.savez_compressed(buf, **sens, t=arrays["t"], y=arrays["y"], derived=arrays["aux"],
                         state_names=np.array(meta["state_names"], dtype=str),
                         derived_names=np.array(meta["aux_names"], dtype=str),
                         state_units=np.array(unit_list(meta, "state_names"), dtype=str),

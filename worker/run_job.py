@@ -6,6 +6,7 @@ loads kernels) and carries the cancel flag to the integrator's monitor.
 """
 from __future__ import annotations
 
+import dataclasses
 import logging
 import threading
 import time
@@ -16,6 +17,7 @@ from marshmallow import ValidationError
 from engine.kernels import native
 from engine.integrate import CANCELLED, SUCCEEDED, Reached, integrate
 from engine.model import ModelError, prepare
+from engine.sensitivities import prepare_sensitivities, split
 from jobs import blob as result_blob
 from jobs import metrics
 from jobs.store import JobStore
@@ -115,8 +117,9 @@ class LiveResult:
     spends more than a tenth of the time on snapshots.
     """
 
-    def __init__(self, header: dict, span: tuple[float, float], n_columns: int):
-        self.header = header  # names, units, model facts: the parts of the meta that never change
+    def __init__(self, header: dict, span: tuple[float, float], n_columns: int, n_states: int | None = None):
+        self.header = header
+        self.n_states = n_states  # the states' columns of an augmented (sensitivity) system  # names, units, model facts: the parts of the meta that never change
         self.span = span
         self.rows = max(10, min(LIVE_ROWS, LIVE_VALUES // max(n_columns, 1)))
         self.period = LIVE_PERIOD
@@ -131,6 +134,8 @@ class LiveResult:
         self.next_at = now + self.period
         try:
             t, y, aux = reached.outputs(self.rows)
+            if self.n_states is not None:
+                y = y[:, :self.n_states]
             ev_t, ev_i, ev_y = reached.events()
             report = {"method": reached.method, "accepted_steps": reached.accepted_steps,
                       "t_reached": reached.t}
@@ -205,16 +210,32 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         # soft limit, inside the engine, with diagnostics
         wall = min(spec["limits"]["max_wall_seconds"], max(store.settings.soft_time_limit - 30, 1))
         t_prep = time.perf_counter()
+        sens = spec.get("sensitivity")
+        sm = None
         with bounded(wall):
-            prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
+            if sens:  # the model with its sensitivity equations (engine.sensitivities)
+                sm = prepare_sensitivities(spec["model"], sens["parameters"], sens["initial"])
+                base = sm.base
+                prepared, machine_code = native.choose(sm.augmented, spec["machine_code"])
+            else:
+                prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
+                base = prepared
         prepare_seconds = time.perf_counter() - t_prep
-        p, y0 = prepared.with_overrides(spec["parameters"], spec["initial"])
+        p, y0 = base.with_overrides(spec["parameters"], spec["initial"])
         times = output_times(spec["span"], spec["output"])
-        options = solver_options(spec, prepared, wall_cap=max(wall - prepare_seconds, 0.01))
-        header = {"state_names": list(prepared.state_names), "aux_names": list(prepared.aux_names),
-                  "units": dict(prepared.units), "model": prepared.summary()}
-        beat.live = LiveResult(dict(header, event_names=list(prepared.event_names)), tuple(spec["span"]),
-                               1 + len(prepared.state_names) + len(prepared.aux_names))
+        options = solver_options(spec, base, wall_cap=max(wall - prepare_seconds, 0.01))
+        theta = None
+        if sm is not None:
+            theta = sm.values(p, y0)
+            options = dataclasses.replace(
+                options, atol=sm.atol(options.atol, p, y0, sens["error_control"]),
+                nonnegative=sm.nonnegative(options.nonnegative), state_names=tuple(prepared.state_names))
+            y0 = sm.initial_state(y0)
+        n = len(base.state_names)
+        header = {"state_names": list(base.state_names), "aux_names": list(base.aux_names),
+                  "units": dict(base.units), "model": base.summary()}
+        beat.live = LiveResult(dict(header, event_names=list(base.event_names)), tuple(spec["span"]),
+                               1 + n + len(base.aux_names), n_states=n)
         sol = integrate(prepared.kernel, p, y0, tuple(spec["span"]), times, options,
                         monitor=beat.monitor, conservation=prepared.conservation, live=beat.live)
     except PreparationLimit as e:
@@ -236,12 +257,18 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
                                   f"machine code from t={m['t']:.6g} on"}
     sol.report["machine_code"] = machine_code
     summary = result_blob.json_safe(digest(sol.report, prepare_seconds) | {"t_reached": sol.t_reached})
-    events = [{"name": prepared.event_names[int(i)], "t": float(t), "states": dict(zip(prepared.state_names, y))}
+    events = [{"name": base.event_names[int(i)], "t": float(t), "states": dict(zip(base.state_names, y))}
               for i, t, y in zip(sol.event_index, sol.event_t, sol.event_y)]
     # every run that reached the solver keeps what it computed: a failed, cancelled or
     # time-limited run's states up to the last output time reached, flagged partial
     meta = {"outcome": sol.outcome, "message": sol.message, "partial": state != "succeeded",
             "t_reached": sol.t_reached, "t_end": float(spec["span"][1]), "report": sol.report,
             "events": events, **header}
-    blob = result_blob.encode(meta, {"t": sol.t, "y": sol.y, "aux": sol.aux})
+    arrays = {"t": sol.t, "y": sol.y[:, :n], "aux": sol.aux}
+    if sm is not None:
+        _, sens_values = split(sm, sol.y, theta)
+        arrays["sensitivity"] = sens_values.raw
+        meta["sensitivity"] = {"wrt": list(sm.wrt), "theta": [float(v) for v in theta],
+                               "error_control": bool(sens["error_control"])}
+    blob = result_blob.encode(meta, arrays)
     return state, sol.outcome, sol.message, summary, blob, progress_reached(sol.t_reached, spec["span"])

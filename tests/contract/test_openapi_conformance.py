@@ -17,7 +17,7 @@ import uuid
 
 import pytest
 import schemathesis
-from hypothesis import HealthCheck, given, settings
+from hypothesis import HealthCheck, assume, given, settings
 from hypothesis.errors import Unsatisfiable
 from schemathesis import GenerationMode
 from schemathesis import checks
@@ -125,6 +125,9 @@ def test_requests_the_document_forbids_are_refused(api_schema, contract_app, met
     @settings(max_examples=EXAMPLES // 2, deadline=None, derandomize=True, database=None,
               suppress_health_check=list(HealthCheck))
     def check(case):
+        # a query value of [] or None is not sent at all (the HTTP client drops it), so such a
+        # "negative" case arrives as a valid request; it was answered 200, rightly
+        assume(all(v not in (None, [], {}) for v in (case.query or {}).values()))
         CASES["run"] += 1
         case.call_and_validate(headers=auth)
 
