@@ -19,6 +19,7 @@ Pure functions and frozen data; no service or queue imports.
 from __future__ import annotations
 
 import dataclasses
+import hashlib
 import math
 import threading
 import time
@@ -168,7 +169,9 @@ def _augment(model, parameters, initial, limits: Limits) -> SensitiveModel:
     if nnz > limits.max_jacobian_nonzeros:
         raise ModelError([ModelIssue((), f"the sensitivity system's Jacobian has {nnz} non-zeros; the limit is "
                                          f"{limits.max_jacobian_nonzeros}: name fewer parameters")])
-    augmented = _compile(aug_spec, limits, base.content_hash, started)
+    # its own content hash: caches keyed by it (machine code on disk) must never mix the two
+    digest = hashlib.sha256(f"{base.content_hash}|sensitivity|{labels}".encode()).hexdigest()
+    augmented = _compile(aug_spec, limits, digest, started)
     laws = base.conservation  # the states' conservation laws still hold; checked on the state block
     augmented = dataclasses.replace(
         augmented, conservation=np.hstack([laws, np.zeros((len(laws), N - n))]) if len(laws)
