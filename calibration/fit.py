@@ -249,16 +249,16 @@ class _Evaluator:
         sindex = {n: i for i, n in enumerate(base.state_names)}
         self.targets = [(pindex[u.name], -1) if u.name in pindex else (-1, sindex[u.name[len(INITIAL_PREFIX):]])
                         for u in problem.unknowns]
-        aug, self.machine = native.choose(
-            sm.augmented, problem.machine_code,
-            solves=problem.max_evaluations * max(len(problem.experiments), 1))
+        # "auto": machine code compiled before is used at once; a problem asked for again (the
+        # next chunk of starts) compiles it in the background when that is quick (native.choose)
+        aug, self.machine = native.choose(sm.augmented, problem.machine_code, solves=1)
         self.kernel = aug.kernel
         derived_names = sorted({t for t in problem.observables.values() if t not in sindex})
         self.derived = _Derived(problem.model, derived_names) if derived_names else None
         dindex = {n: i for i, n in enumerate(derived_names)}
         self.setups: list[_Setup] = []
         for e in problem.experiments:
-            params = dict(problem.fixed)
+            params = dict(problem.parameters)
             params.update(e.parameters)
             p, y0 = base.with_overrides(params, e.initial)
             cols = []

@@ -69,7 +69,7 @@ class Problem:
     observables: dict              # observable -> a state or derived-quantity name of the model
     noise: dict                    # observable -> Noise
     unknowns: tuple
-    fixed: dict = field(default_factory=dict)  # parameter values fixed for every experiment
+    parameters: dict = field(default_factory=dict)  # parameter values (not estimated) for every experiment
     rtol: float = 1e-8
     atol: float = 1e-12
     method: str = "auto"
@@ -209,13 +209,13 @@ def check(problem: Problem) -> list[Issue]:
             elif ok_lo and ok_hi and not (u.lower <= u.start <= u.upper):
                 add(("unknowns", i, "start"), f"{u.start} is outside the bounds [{u.lower}, {u.upper}]")
 
-    for name, value in problem.fixed.items():
+    for name, value in problem.parameters.items():
         if name not in params:
-            add(("fixed", name), f"unknown parameter '{name}'{_hint(name, params)}")
+            add(("parameters", name), f"unknown parameter '{name}'{_hint(name, params)}")
         elif name in estimated_params:
-            add(("fixed", name), f"'{name}' is estimated; it cannot also be fixed")
+            add(("parameters", name), f"'{name}' is estimated; it cannot also be given a value")
         if not _finite(value):
-            add(("fixed", name), "must be a finite number")
+            add(("parameters", name), "must be a finite number")
 
     # experiments and measurements
     if not problem.experiments:

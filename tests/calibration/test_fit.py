@@ -79,12 +79,12 @@ def test_rate_constants_and_an_initial_value_are_recovered_from_noise_free_data(
 
 
 def test_several_experiments_share_the_unknowns_and_keep_their_own_conditions():
-    # the same k1, k2 under two initial loads, one experiment with k2 fixed to another value
+    # the same k1, k2 under two initial loads, one experiment with its own k2
     ref1 = closed_form(T)
     ref2 = closed_form(T, K1, 0.9, 5.0)
     e1 = Experiment("low", (0.0, 8.0), T, {"B": ref1["B"]})
     e2 = Experiment("high", (0.0, 8.0), T, {"B": ref2["B"]}, initial={"A": 5.0}, parameters={"k2": 0.9})
-    problem = Problem(CHAIN, (e1, e2), {"B": "B"}, {}, (Unknown("k1", 0.01, 10),), fixed={"k2": K2},
+    problem = Problem(CHAIN, (e1, e2), {"B": "B"}, {}, (Unknown("k1", 0.01, 10),), parameters={"k2": K2},
                       rtol=1e-10, atol=1e-14)
     est = fit(problem, 3)
     assert est.x[0] == pytest.approx(K1, rel=1e-7)
@@ -100,7 +100,7 @@ def test_weights_come_from_the_noise_model_and_per_point_sigmas():
     sigma[2] = 0.5
     e = Experiment("chain", (0.0, 8.0), T, {"B": observed}, sigma={"B": sigma})
     problem = Problem(CHAIN, (e,), {"B": "B"}, {"B": Noise(absolute=0.01, relative=0.05)},
-                      (Unknown("k1", 0.01, 10),), fixed={"k2": K2}, rtol=1e-10, atol=1e-14)
+                      (Unknown("k1", 0.01, 10),), parameters={"k2": K2}, rtol=1e-10, atol=1e-14)
     r, _, ok, _ = _evaluator(problem).residuals(np.array([K1]))
     expected_sigma = np.sqrt(0.01 ** 2 + (0.05 * np.abs(observed)) ** 2)
     expected_sigma[2] = 0.5
