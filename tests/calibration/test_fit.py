@@ -223,3 +223,37 @@ def test_fine_grid_is_log_spaced_when_the_data_are():
     assert len(grid) == 200 and grid[0] == 0.0 and grid[-1] == pytest.approx(10.0)
     ratios = grid[2:] / grid[1:-1]
     assert np.allclose(ratios, ratios[0])
+
+
+def test_stiff_robertson_rate_constants_over_nine_decades_are_recovered():
+    # Robertson's kinetics (Hairer & Wanner II, sec. IV.1), measured at log-spaced times from
+    # a tight-tolerance solution of the engine itself (a self-consistency check): the three
+    # rate constants (0.04, 3e7, 1e4) come back from starts spread over four decades each
+    from pathlib import Path
+
+    from engine.integrate import SolverOptions, integrate
+    from engine.model import prepare
+    model = json.loads((Path(__file__).resolve().parents[2] / "examples" / "models" / "robertson.json").read_text())
+    pm = prepare(model)
+    t = np.geomspace(1e-3, 1e5, 12)
+    sol = integrate(pm.kernel, pm.p, pm.y0, (0.0, 1e5), t, SolverOptions(rtol=1e-10, atol=1e-16))
+    noise = Noise(absolute=1e-6, relative=1e-3)
+    e = Experiment("robertson", (0.0, 1e5), t, {"y1": sol.y[:, 0], "y3": sol.y[:, 2]})
+    problem = Problem(model, (e,), {"y1": "y1", "y3": "y3"}, {"y1": noise, "y3": noise},
+                      (Unknown("k1", 1e-3, 1.0), Unknown("k2", 1e5, 1e9), Unknown("k3", 1e2, 1e6)),
+                      rtol=1e-8, atol=1e-14)
+    est = fit(problem, 6)
+    np.testing.assert_allclose(est.x, [0.04, 3e7, 1e4], rtol=1e-5)
+    assert est.reached_best == 6
+    grid = est.to_json()["experiments"][0]["fine"]["times"]
+    assert grid[0] == 0.0 and grid[2] / grid[1] == pytest.approx(grid[3] / grid[2])  # log-spaced
+
+
+def test_replicate_measurements_at_one_time_and_a_reading_at_the_start_are_fitted():
+    t = np.array([0.0, 1.0, 1.0, 2.0, 2.0, 4.0])
+    a = 2 * np.exp(-0.7 * t) * (1 + 0.01 * np.array([0, 1, -1, 1, -1, 0]))
+    e = Experiment("replicates", (0.0, 4.0), t, {"A": a})
+    est = fit(Problem(CHAIN, (e,), {"A": "A"}, {}, (Unknown("k1", 0.01, 10),), rtol=1e-10, atol=1e-14), 2)
+    assert est.x[0] == pytest.approx(0.7, rel=1e-4) and est.points == 6
+    fitted = est.to_json()["experiments"][0]["fitted"]["A"]
+    assert fitted[1] == fitted[2] and fitted[0] == pytest.approx(2.0)
