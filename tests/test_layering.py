@@ -11,10 +11,14 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parent.parent
-PACKAGES = ["engine", "sweeps", "schemas", "jobs", "service", "worker", "cli"]
+PACKAGES = ["engine", "sweeps", "calibration", "schemas", "jobs", "service", "worker", "cli"]
 FORBIDDEN = {
-    "engine": {"flask", "celery", "redis", "kombu", "schemas", "service", "worker", "jobs", "cli", "sweeps"},
+    "engine": {"flask", "celery", "redis", "kombu", "schemas", "service", "worker", "jobs", "cli", "sweeps",
+               "calibration"},
     "sweeps": {"flask", "celery", "redis", "numba", "engine", "schemas", "service", "worker", "jobs", "cli"},
+    # parameter estimation: pure numerics on the engine (numpy, scipy), no service machinery
+    "calibration": {"flask", "celery", "redis", "kombu", "marshmallow", "schemas", "service", "worker",
+                    "jobs", "cli", "sweeps"},
     "schemas": {"flask", "celery", "redis", "numba", "service", "worker", "jobs", "cli"},
     "jobs": {"flask", "service", "worker", "cli", "engine", "numba"},
     "service": {"worker", "celery", "cli", "engine", "numba"},
@@ -26,6 +30,12 @@ FORBIDDEN_MODULES = {
     # the API validates with the model language only: no compiled kernels, no integrators
     "schemas": ("engine.model", "engine.integrate", "engine.kernels", "engine.integrators",
                 "engine.diagnostics", "engine.warmup"),
+}
+# Single modules the API process may import: only the numba-free parts of the engine.
+API_SAFE_MODULES = {
+    "calibration/problem.py": ("engine.model", "engine.integrate", "engine.kernels", "engine.integrators",
+                               "engine.diagnostics", "engine.warmup", "engine.sensitivities", "numba",
+                               "calibration.fit"),
 }
 # Inside the engine: the model language knows nothing of kernels or integrators.
 ENGINE_LAYERS = {
@@ -66,6 +76,23 @@ def test_package_imports_respect_the_layering(package):
 @pytest.mark.parametrize("folder", sorted(ENGINE_LAYERS))
 def test_engine_layers_point_one_way(folder):
     assert offenders(folder, set(), ENGINE_LAYERS[folder]) == {}
+
+
+@pytest.mark.parametrize("module", sorted(API_SAFE_MODULES))
+def test_api_safe_modules_import_no_compiled_engine(module):
+    mods = imported_modules(ROOT / module)
+    prefixes = API_SAFE_MODULES[module]
+    assert sorted(m for m in mods for pre in prefixes if m == pre or m.startswith(pre + ".")) == []
+
+
+def test_checking_a_calibration_problem_never_loads_numba():
+    code = ("import sys, numpy as np; from calibration.problem import Problem, Experiment, Unknown, check; "
+            "m = {'states': {'a': 1}, 'parameters': {'k': 1}, 'ddt': {'a': '-k*a'}}; "
+            "e = Experiment('e', (0, 1), np.array([0.5]), {'a': np.array([0.6])}); "
+            "print(check(Problem(m, (e,), {'a': 'a'}, {}, (Unknown('k', 0.1, 10),))), 'numba' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr
+    assert out.stdout.split() == ["[]", "False"]
 
 
 def test_the_api_process_never_loads_numba():

@@ -1,0 +1,1 @@
+"""Parameter estimation against measurements (pure numerics): see calibration.fit."""
