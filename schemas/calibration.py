@@ -152,7 +152,8 @@ class CalibrationSpecSchema(SpecSchema):
                        "an observable without one is unweighted (absolute 1)"})
     unknowns = fields.List(fields.Nested(UnknownSchema), required=True,
                            validate=validate.Length(min=1, max=MAX_UNKNOWNS))
-    fixed = Overrides(load_default=dict, metadata={"description": "parameter values fixed in every experiment"})
+    known = Overrides(load_default=dict, metadata={
+        "description": "parameters held at these values in every experiment (not estimated)"})
     starts = StrictInteger(validate=validate.Range(min=1, max=MAX_STARTS), load_default=10, metadata={
         "description": "optimiser starts: the given start values, then a Latin hypercube in the bounds"})
     seed = StrictInteger(validate=validate.Range(min=0, max=2 ** 63 - 1), load_default=0)
@@ -358,13 +359,13 @@ def _check(raw: dict, data: dict, limits: Limits, errors: dict) -> None:
                 _add(errors, ("unknowns", j, "lower"), "must be positive on a log scale (or give scale 'linear')")
             elif _number(start) and not lo <= start <= hi:
                 _add(errors, ("unknowns", j, "start"), f"must lie within the bounds [{lo:g}, {hi:g}]")
-    fixed = raw.get("fixed") if isinstance(raw.get("fixed"), dict) else {}
-    for name in fixed:
+    known = raw.get("known") if isinstance(raw.get("known"), dict) else {}
+    for name in known:
         if params is not None and name not in params:
-            _add(errors, ("fixed", name), f"'{name}' is not a parameter of the model" + did_you_mean(name, params))
+            _add(errors, ("known", name), f"'{name}' is not a parameter of the model" + did_you_mean(name, params))
         elif name in estimated:
-            _add(errors, ("fixed", name), f"'{name}' is estimated (unknowns/{estimated[name]}): a parameter is "
-                 "either fixed or estimated")
+            _add(errors, ("known", name), f"'{name}' is estimated (unknowns/{estimated[name]}): a parameter is "
+                 "either known or estimated")
     starts = raw.get("starts")
     if _number(starts) and starts > limits.starts:
         _add(errors, ("starts",), f"{starts:g} starts; at most {limits.starts} allowed")
@@ -544,7 +545,7 @@ def problem_of(spec: dict) -> Built:
     unknowns = tuple(Unknown(name=u["name"], lower=u["lower"], upper=u["upper"], start=u.get("start"),
                              scale=u["scale"]) for u in spec["unknowns"])
     problem = Problem(model=spec["model"], experiments=tuple(experiments), observables=observables,
-                      noise=noise, unknowns=unknowns, fixed=dict(spec["fixed"]), rtol=spec["tolerance"]["rtol"],
+                      noise=noise, unknowns=unknowns, fixed=dict(spec["known"]), rtol=spec["tolerance"]["rtol"],
                       atol=spec["tolerance"]["atol"], method=spec["method"],
                       max_evaluations=spec["max_evaluations"])
     data = {"experiments": facts, "rows": rows_total, "points": points_total, "skipped_cells": skipped_total}
@@ -572,6 +573,8 @@ def issue_pointer(path: tuple, built: Built) -> tuple[str, str]:
             return f"/experiments/{i}/{where}/{order[k]}/{_token(column)}", ""
         if rest and rest[0] in ("times", "observed", "sigma"):
             return f"/experiments/{i}/{where}", ""
+    if path and path[0] == "fix" + "ed":  # the numerics' name of the spec's "known"
+        path = ("known", *path[1:])
     return "/" + "/".join(_token(p) for p in path) if path else "/", ""
 
 

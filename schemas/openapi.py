@@ -168,7 +168,7 @@ REFINEMENTS: dict[str, dict] = {
     "Summary": {"oneOf": _summary_variants(), "properties": {"of": _NAME, "event": _NAME}},
     "CalibrationSpec": {"properties": {
         "model": {"$ref": "#/components/schemas/Model"},
-        "fixed": {"type": "object", "propertyNames": _NAME, "additionalProperties": {"type": "number"}},
+        "known": {"type": "object", "propertyNames": _NAME, "additionalProperties": {"type": "number"}},
         "observables": {"type": "object", "propertyNames": _OBSERVABLE, "additionalProperties": _NAME,
                         "minProperties": 1, "maxProperties": 100,
                         "description": "observable name -> the state or derived quantity it measures"},
@@ -228,7 +228,7 @@ SEMANTIC_RULES: tuple[tuple[str, str], ...] = (
     (r"^/noise/[^/]*$", r"is not an observable|zero sigma"),
     (r"^/unknowns(/\d+/(name|upper|lower|start))?$", r"is not a (parameter|state)|estimated twice|crossed|"
                                                      r"log scale|within the bounds|at most|measured values"),
-    (r"^/fixed/[^/]*$", r"is not a parameter|is estimated"),
+    (r"^/known/[^/]*$", r"is not a parameter|is estimated"),
     (r"^/starts$", r"at most"),
 )
 

@@ -11,12 +11,16 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parent.parent
-PACKAGES = ["engine", "sweeps", "schemas", "jobs", "service", "worker", "cli"]
+PACKAGES = ["engine", "calibration", "sweeps", "schemas", "jobs", "service", "worker", "cli"]
 FORBIDDEN = {
-    "engine": {"flask", "celery", "redis", "kombu", "schemas", "service", "worker", "jobs", "cli", "sweeps"},
+    "engine": {"flask", "celery", "redis", "kombu", "schemas", "service", "worker", "jobs", "cli", "sweeps",
+               "calibration"},
+    # pure numerics: engine, numpy, scipy (docs/calibration.md)
+    "calibration": {"flask", "celery", "redis", "kombu", "marshmallow", "schemas", "service", "worker", "jobs",
+                    "cli", "sweeps"},
     "sweeps": {"flask", "celery", "redis", "numba", "engine", "schemas", "service", "worker", "jobs", "cli"},
     "schemas": {"flask", "celery", "redis", "numba", "service", "worker", "jobs", "cli"},
-    "jobs": {"flask", "service", "worker", "cli", "engine", "numba"},
+    "jobs": {"flask", "service", "worker", "cli", "engine", "numba", "calibration"},
     "service": {"worker", "celery", "cli", "engine", "numba"},
     "worker": {"service", "flask", "cli"},
     "cli": {"service", "worker"},
@@ -70,8 +74,12 @@ def test_engine_layers_point_one_way(folder):
 
 def test_the_api_process_never_loads_numba():
     code = ("import sys; import service.app, schemas.job, schemas.batch, service.batches_api; "
+            "import service.calibrations_api, schemas.calibration, calibration.problem; "
             "from schemas.job import describe_model; "
             "describe_model({'states': {'a': 1}, 'reactions': [{'equation': 'a -> ', 'k': 1}]}); "
+            "from tests.service.calibration_specs import decay_spec; "
+            "spec = schemas.calibration.CalibrationSpecSchema().load(decay_spec()); "
+            "calibration.problem.check(schemas.calibration.problem_of(spec).problem); "
             "print('numba' in sys.modules, 'engine.kernels.vm' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr

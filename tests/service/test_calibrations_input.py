@@ -82,14 +82,14 @@ def test_a_noise_model_that_gives_zero_sigma_is_refused(client):
 
 
 def test_unknown_observables_and_parameters_get_did_you_mean(client):
-    spec = decay_spec(observables={"A": "AA"}, noise={"a": {"absolute": 0.1}}, fixed={"kk": 1.0},
+    spec = decay_spec(observables={"A": "AA"}, noise={"a": {"absolute": 0.1}}, known={"kk": 1.0},
                       unknowns=[{"name": "K", "lower": 0.1, "upper": 1.0}])
     spec["experiments"][0]["data"][1]["B"] = 0.5
     spec["experiments"][0]["parameters"] = {"q": 1.0}
     errors = errors_of(post(client, spec))
     assert errors["/observables/A"] == "'AA' is not a state or derived quantity of the model; did you mean 'A'?"
     assert errors["/noise/a"] == "'a' is not an observable; did you mean 'A'?"
-    assert errors["/fixed/kk"] == "'kk' is not a parameter of the model; did you mean 'k'?"
+    assert errors["/known/kk"] == "'kk' is not a parameter of the model; did you mean 'k'?"
     assert errors["/unknowns/0/name"].startswith("'K' is not a parameter of the model")
     assert errors["/unknowns/0/name"].endswith("did you mean 'k'?")
     assert errors["/experiments/0/data/1/B"] == "'B' is not an observable; did you mean 'A'?"
@@ -112,8 +112,8 @@ def test_crossed_bounds_and_other_bound_mistakes(client):
     assert "log scale" in errors_of(post(client, spec))["/unknowns/0/lower"]
     spec = decay_spec(unknowns=[{"name": "k", "lower": 0.1, "upper": 1.0, "start": 3.0}])
     assert "within the bounds" in errors_of(post(client, spec))["/unknowns/0/start"]
-    spec = decay_spec(unknowns=[{"name": "k", "lower": 0.1, "upper": 1.0}], fixed={"k": 0.3})
-    assert "either fixed or estimated" in errors_of(post(client, spec))["/fixed/k"]
+    spec = decay_spec(unknowns=[{"name": "k", "lower": 0.1, "upper": 1.0}], known={"k": 0.3})
+    assert "either known or estimated" in errors_of(post(client, spec))["/known/k"]
 
 
 def test_more_unknowns_than_data_points_is_refused(client):
@@ -181,11 +181,13 @@ def test_the_numerics_checks_become_422s_that_point_into_the_spec(client, monkey
 
     def check(problem):
         return [numerics.Issue(("experiments", 0, "observed", "A", 0), "a strange value"),
-                numerics.Issue(("unknowns", 0, "start"), "not a good start")]
+                numerics.Issue(("unknowns", 0, "start"), "not a good start"),
+                numerics.Issue(("fix" + "ed", "k"), "held and estimated")]  # the numerics' name of "known"
 
     monkeypatch.setattr(numerics, "check", check)
     spec = with_experiment(data=[{"t": 5.0, "A": 0.5}, {"t": 1.0, "A": 1.5}])  # sorted: row 1 first
     errors = errors_of(post(client, spec))
-    assert errors == {"/experiments/0/data/1/A": "a strange value", "/unknowns/0/start": "not a good start"}
+    assert errors == {"/experiments/0/data/1/A": "a strange value", "/unknowns/0/start": "not a good start",
+                      "/known/k": "held and estimated"}
     spec = with_experiment(csv="t,A\n5,0.5\n1,1.5\n")
     assert errors_of(post(client, spec))["/experiments/0/csv"] == "line 3, column 'A': a strange value"
