@@ -15,6 +15,7 @@ Jobs (over the API; --server URL or $STIFFLANE_URL, --key or $STIFFLANE_KEY):
     stifflane list / cancel ID                 list your jobs / cancel one
     stifflane validate SPEC                    check a spec locally, without a server
     stifflane batch submit|watch|table|stats|list|cancel   sweeps over parameters
+    stifflane calibrate submit|show|result|list|cancel     fit parameters to measurements
     stifflane keys create|list|revoke          API keys (operator; talks to Redis)
 
 Run 'stifflane COMMAND --help' for options and examples.
@@ -443,7 +444,7 @@ def parser() -> argparse.ArgumentParser:
     w.set_defaults(func=cmd_worker)
     sub.add_parser("warm", help="load or compile the engine kernels").set_defaults(func=cmd_warm)
     _stack_examples(sub)
-    from cli import batch_cmds, jobs_cmds, keys, report, validate
+    from cli import batch_cmds, calibrate_cmds, jobs_cmds, keys, report, validate
     from cli.common import add_global_connection_args
 
     add_global_connection_args(ap)
@@ -451,6 +452,7 @@ def parser() -> argparse.ArgumentParser:
     report.register(sub)
     validate.register(sub)
     batch_cmds.register(sub)
+    calibrate_cmds.register(sub)
     keys.register(sub)
     return ap
 

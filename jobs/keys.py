@@ -20,6 +20,14 @@
 | {p}:batches:owner:{o}        | zset   | one owner's batch ids                   | pruned lazily  |
 | {p}:batches:active           | zset   | batch ids not yet settled (reconciler)  | none           |
 | {p}:batches:active_owners    | hash   | owner -> number of unsettled batches    | none           |
+| {p}:calibration:{id}         | hash   | calibration record: state, stage, counts, best so far, spec | result TTL |
+| {p}:calibration:{id}:chunks  | hash   | chunk states s<i> and attempts a<i> (i = n_chunks: the summary) | result TTL |
+| {p}:calibration:{id}:leases  | zset   | running chunk -> lease expiry; w<i> -> republication time | deleted when settled |
+| {p}:calibration:{id}:starts:{i} | string | one chunk's start outcomes (zlib JSON) | result TTL |
+| {p}:calibration:{id}:estimate | string | the estimate (zlib JSON)              | result TTL     |
+| {p}:calibrations:owner:{o}   | zset   | one owner's calibration ids             | pruned lazily  |
+| {p}:calibrations:active      | zset   | calibration ids not yet settled (reconciler) | none      |
+| {p}:calibrations:active_owners | hash | owner -> number of unsettled calibrations | none          |
 | {p}:metrics:counts           | hash   | counters: jobs finished by state/outcome, batch members by outcome (jobs/metrics.py) | none: bounded (fixed vocabularies) |
 | {p}:metrics:hist:{name}      | hash   | one histogram: a count per fixed bucket, sum, count | none: bounded (fixed buckets) |
 
@@ -134,6 +142,31 @@ class Keys:
 
     def batches_active_owners(self) -> str:
         return f"{self.prefix}:batches:active_owners"
+
+    # ---- calibrations (jobs/calibration_store.py)
+    def calibration(self, cal_id: str) -> str:
+        return f"{self.prefix}:calibration:{cal_id}"
+
+    def calibration_chunks(self, cal_id: str) -> str:
+        return f"{self.prefix}:calibration:{cal_id}:chunks"
+
+    def calibration_leases(self, cal_id: str) -> str:
+        return f"{self.prefix}:calibration:{cal_id}:leases"
+
+    def calibration_starts(self, cal_id: str, chunk: int) -> str:
+        return f"{self.prefix}:calibration:{cal_id}:starts:{chunk}"
+
+    def calibration_estimate(self, cal_id: str) -> str:
+        return f"{self.prefix}:calibration:{cal_id}:estimate"
+
+    def calibrations_owner(self, owner: str) -> str:
+        return f"{self.prefix}:calibrations:owner:{owner}"
+
+    def calibrations_active(self) -> str:
+        return f"{self.prefix}:calibrations:active"
+
+    def calibrations_active_owners(self) -> str:
+        return f"{self.prefix}:calibrations:active_owners"
 
     # ---- operations metrics (jobs/metrics.py): bounded hashes, never per job
     def metrics_counts(self) -> str:

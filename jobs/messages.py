@@ -17,7 +17,7 @@ import json
 from typing import Optional
 
 from jobs.keys import is_job_id
-from jobs.queue import BATCH_TASK, SOLVE_TASK
+from jobs.queue import BATCH_TASK, CALIBRATION_TASK, SOLVE_TASK
 
 UNACKED = "unacked"              # kombu.transport.redis.Channel.unacked_key
 UNACKED_INDEX = "unacked_index"  # kombu.transport.redis.Channel.unacked_index_key
@@ -56,6 +56,16 @@ def chunk_of(envelope) -> Optional[tuple[str, int]]:
         batch_id, chunk = task[1]
         if isinstance(batch_id, str) and is_job_id(batch_id) and isinstance(chunk, int) and chunk >= 0:
             return batch_id, chunk
+    return None
+
+
+def calibration_unit_of(envelope) -> Optional[tuple[str, int]]:
+    """(calibration id, unit) a calibration message names, else None."""
+    task = task_of(envelope)
+    if task and task[0] == CALIBRATION_TASK and len(task[1]) == 2:
+        cal_id, unit = task[1]
+        if isinstance(cal_id, str) and is_job_id(cal_id) and isinstance(unit, int) and unit >= 0:
+            return cal_id, unit
     return None
 
 

@@ -12,6 +12,8 @@ from jobs.settings import Settings
 
 SOLVE_TASK = "stifflane.solve"
 BATCH_TASK = "stifflane.batch_chunk"  # args: [batch_id, chunk index]; on settings.batch_queue
+# args: [calibration_id, unit]; units 0..n-1 run starts, unit n writes the estimate; on settings.batch_queue
+CALIBRATION_TASK = "stifflane.calibration_chunk"
 
 
 def celery_config(settings: Settings) -> dict:
@@ -53,3 +55,7 @@ class Publisher:
     def publish_chunk(self, batch_id: str, chunk: int) -> None:
         """One chunk of a batch, on the batch queue (workers also serve the interactive one)."""
         self.celery.send_task(BATCH_TASK, args=[batch_id, int(chunk)], queue=self.settings.batch_queue)
+
+    def publish_calibration(self, calibration_id: str, unit: int) -> None:
+        """One chunk of a calibration's starts, or its summary, on the batch queue."""
+        self.celery.send_task(CALIBRATION_TASK, args=[calibration_id, int(unit)], queue=self.settings.batch_queue)

@@ -41,6 +41,15 @@ class Settings:
     batch_chunks_in_flight: int = 8      # published, unfinished chunks per owner (shared by its batches)
     max_batch_trajectory_values: int = 5_000_000
     batch_stale_seconds: int = 60        # a published chunk unclaimed this long is published again
+    # calibrations (jobs/calibration_store.py, docs/calibration.md)
+    calibration_chunk_size: int = 2        # starts per unit of work
+    calibration_chunks_in_flight: int = 8  # published, unfinished chunks per owner (shared by its calibrations)
+    max_calibration_starts: int = 200
+    max_calibration_rows: int = 20_000     # measurement rows in all experiments together
+    max_calibration_experiments: int = 100
+    max_calibration_unknowns: int = 20
+    max_calibration_body_bytes: int = 2 * 1024 * 1024  # never above max_body_bytes (the front's limit)
+    max_active_calibrations: int = 20      # queued + running calibrations per owner
     metrics_access: str = "admin"        # /metrics: "admin" (an admin key), "public" (no key), "off" (404)
 
     @classmethod

@@ -22,6 +22,8 @@ from apispec.ext.marshmallow import MarshmallowPlugin
 from marshmallow import validate
 
 from schemas.batch import BatchSpecSchema, DistributionSchema, SummarySchema
+from schemas.calibration import (OBSERVABLE_NAME, CalibrationCreatedSchema, CalibrationPageSchema,
+                                 CalibrationSpecSchema, CalibrationViewSchema, EstimateSchema, NoiseSchema)
 from schemas.job import MIN_ATOL, JobSpecSchema
 from schemas.problem import PROBLEM_MEDIA_TYPE, ProblemSchema
 from schemas.views import (BatchCreatedSchema, BatchPageSchema, BatchStatisticsSchema, BatchTableSchema,
@@ -142,6 +144,12 @@ _AXIS = {"description": "a list of values, or evenly spaced values {from, to, co
 _BY_TARGET = lambda values: {t: {"type": "object", "propertyNames": _NAME,  # noqa: E731
                                  "additionalProperties": values} for t in ("parameters", "initial")}
 
+# A measurement row of a calibration (schemas/calibration.py, RowField): the time and values by
+# observable, null for a missing cell.
+_ROW = {"type": "object", "required": ["t"], "properties": {"t": {"type": "number"}},
+        "additionalProperties": {"type": ["number", "null"]}}
+_OBSERVABLE = {"type": "string", "pattern": OBSERVABLE_NAME, "not": {"enum": ["t", "time"]}}
+
 # Additions to the generated components: JSON Schema keywords merged in, or properties replaced.
 REFINEMENTS: dict[str, dict] = {
     "JobSpec": {"properties": {"model": {"$ref": "#/components/schemas/Model"},
@@ -158,6 +166,22 @@ REFINEMENTS: dict[str, dict] = {
     "Sample": {"properties": _BY_TARGET({"$ref": "#/components/schemas/Distribution"})},
     "Distribution": {"oneOf": _distribution_variants()},
     "Summary": {"oneOf": _summary_variants(), "properties": {"of": _NAME, "event": _NAME}},
+    "CalibrationSpec": {"properties": {
+        "model": {"$ref": "#/components/schemas/Model"},
+        "known": {"type": "object", "propertyNames": _NAME, "additionalProperties": {"type": "number"}},
+        "observables": {"type": "object", "propertyNames": _OBSERVABLE, "additionalProperties": _NAME,
+                        "minProperties": 1, "maxProperties": 100,
+                        "description": "observable name -> the state or derived quantity it measures"},
+        "noise": {"type": "object", "propertyNames": _OBSERVABLE,
+                  "additionalProperties": {"$ref": "#/components/schemas/Noise"},
+                  "description": "observable -> {absolute, relative}; an observable without one is "
+                                 "unweighted (absolute 1)"}}},
+    "Experiment": {"oneOf": _ONE_OF_REQUIRED("data", "csv"),
+                   "properties": {**_BY_TARGET({"type": "number"}),
+                                  "data": {"type": "array", "minItems": 1, "items": _ROW},
+                                  "sigma": {"type": "array", "minItems": 1, "items": _ROW}}},
+    "Unknown": {"properties": {"name": {"type": "string", "minLength": 1, "maxLength": 69,
+                                        "description": "a parameter, or init:<state> for an initial value"}}},
     # RFC 9457: extension members (errors, state) are allowed; type, title and status always come.
     "Problem": {"additionalProperties": True, "required": ["type", "title", "status"],
                 "properties": {"type": {"type": "string", "format": "uri"}}},
@@ -191,6 +215,23 @@ SEMANTIC_RULES: tuple[tuple[str, str], ...] = (
     (r"^/sample/(parameters|initial)/[^/]+/(high|low)$", r"greater than|positive"),
     (r"^/summaries(/.*)?$", r"is not a|must lie in the span|unique"),
     (r"^/trajectories$", r"trajectory values"),
+    # calibrations (schemas/calibration.py): names against the model, measurements against spans
+    # and observables, bounds, sigma, the server's limits; CSV text is read only by the server
+    (r"^/experiments/\d+/(initial|parameters)/[^/]*$", r"is not a (state|parameter)|is estimated"),
+    (r"^/experiments/\d+/span$", r"t_end must be greater"),
+    (r"^/experiments/\d+/name$", r"is the name of"),
+    (r"^/experiments/\d+/csv$", r"^line \d+"),
+    (r"^/experiments/\d+/(data|csv)$", r"no observable columns|measurement rows"),
+    (r"^/experiments/\d+/data/\d+/[^/]*$", r"outside the experiment's span|is not an observable|sigma is 0"),
+    (r"^/experiments/\d+/sigma(/\d+/[^/]*)?$", r"rows but the data has|but data row|not a measured observable|"
+                                                r"must be positive"),
+    (r"^/experiments$", r"no measured value|at most"),
+    (r"^/observables/[^/]*$", r"is not a state or derived|names the time column"),
+    (r"^/noise/[^/]*$", r"is not an observable|zero sigma"),
+    (r"^/unknowns(/\d+/(name|upper|lower|start))?$", r"is not a (parameter|state)|estimated twice|crossed|"
+                                                     r"log scale|within the bounds|at most|measured values"),
+    (r"^/known/[^/]*$", r"is not a parameter|is estimated"),
+    (r"^/starts$", r"at most"),
 )
 
 _RESPONSES = {
@@ -232,6 +273,8 @@ _PARAMETERS = {
               "schema": {"type": "string", "pattern": ID_PATTERN}},
     "BatchId": {"name": "batch_id", "in": "path", "required": True,
                 "schema": {"type": "string", "pattern": ID_PATTERN}},
+    "CalibrationId": {"name": "calibration_id", "in": "path", "required": True,
+                      "schema": {"type": "string", "pattern": ID_PATTERN}},
     "Limit": {"name": "limit", "in": "query", "description": "page size (default 50)",
               "schema": {"type": "integer", "minimum": 1, "maximum": 200}},
     "Cursor": {"name": "cursor", "in": "query",
@@ -251,7 +294,10 @@ SCHEMAS = {"JobSpec": JobSpecSchema, "JobView": JobViewSchema, "JobPage": JobPag
            "Health": HealthSchema, "Problem": ProblemSchema, "BatchSpec": BatchSpecSchema,
            "Distribution": DistributionSchema,
            "BatchView": BatchViewSchema, "BatchPage": BatchPageSchema, "BatchCreated": BatchCreatedSchema,
-           "BatchTable": BatchTableSchema, "BatchStatistics": BatchStatisticsSchema}
+           "BatchTable": BatchTableSchema, "BatchStatistics": BatchStatisticsSchema,
+           "CalibrationSpec": CalibrationSpecSchema, "CalibrationView": CalibrationViewSchema,
+           "CalibrationPage": CalibrationPageSchema, "CalibrationCreated": CalibrationCreatedSchema,
+           "Noise": NoiseSchema, "Estimate": EstimateSchema}
 
 
 def exclusive_bounds(self, field, ret, **kwargs) -> dict:

@@ -45,6 +45,9 @@ def create_app(settings: Optional[Settings] = None, store: Optional[JobStore] = 
     from service import batches_api  # batch sweeps (docs/batches.md)
 
     app.register_blueprint(batches_api.bp)
+    from service import calibrations_api  # parameter estimation (docs/calibration.md)
+
+    app.register_blueprint(calibrations_api.bp)
     from service import metrics, openapi_doc  # /metrics; query parameters the document does not list are refused
 
     app.register_blueprint(metrics.bp)

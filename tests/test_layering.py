@@ -20,7 +20,7 @@ FORBIDDEN = {
     "calibration": {"flask", "celery", "redis", "kombu", "marshmallow", "schemas", "service", "worker",
                     "jobs", "cli", "sweeps"},
     "schemas": {"flask", "celery", "redis", "numba", "service", "worker", "jobs", "cli"},
-    "jobs": {"flask", "service", "worker", "cli", "engine", "numba"},
+    "jobs": {"flask", "service", "worker", "cli", "engine", "numba", "calibration"},
     "service": {"worker", "celery", "cli", "engine", "numba"},
     "worker": {"service", "flask", "cli"},
     "cli": {"service", "worker"},
@@ -97,8 +97,12 @@ def test_checking_a_calibration_problem_never_loads_numba():
 
 def test_the_api_process_never_loads_numba():
     code = ("import sys; import service.app, schemas.job, schemas.batch, service.batches_api; "
+            "import service.calibrations_api, schemas.calibration, calibration.problem; "
             "from schemas.job import describe_model; "
             "describe_model({'states': {'a': 1}, 'reactions': [{'equation': 'a -> ', 'k': 1}]}); "
+            "from tests.service.calibration_specs import decay_spec; "
+            "spec = schemas.calibration.CalibrationSpecSchema().load(decay_spec()); "
+            "calibration.problem.check(schemas.calibration.problem_of(spec).problem); "
             "print('numba' in sys.modules, 'engine.kernels.vm' in sys.modules)")
     out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, timeout=120)
     assert out.returncode == 0, out.stderr

@@ -15,8 +15,9 @@ from celery import signals
 from celery.exceptions import Reject
 
 from jobs.batch_store import BatchStore
+from jobs.calibration_store import CalibrationStore
 from jobs.keys import is_job_id
-from jobs.queue import BATCH_TASK, SOLVE_TASK, make_celery
+from jobs.queue import BATCH_TASK, CALIBRATION_TASK, SOLVE_TASK, make_celery
 from jobs.settings import Settings
 from jobs.store import JobStore
 from worker import logs as _json_logs  # noqa: F401  (STIFFLANE_LOG_FORMAT=json: JSON lines with job ids)
@@ -45,12 +46,22 @@ def batch_store() -> BatchStore:
     return _clients["batches"]
 
 
+def calibration_store() -> CalibrationStore:
+    if "calibrations" not in _clients:
+        _clients["calibrations"] = CalibrationStore.connect(settings)
+    return _clients["calibrations"]
+
+
 def publish_job(job_id: str) -> None:
     app.send_task(SOLVE_TASK, args=[job_id], queue=settings.interactive_queue)
 
 
 def publish_chunk(batch_id: str, chunk: int) -> None:
     app.send_task(BATCH_TASK, args=[batch_id, int(chunk)], queue=settings.batch_queue)
+
+
+def publish_calibration(cal_id: str, unit: int) -> None:
+    app.send_task(CALIBRATION_TASK, args=[cal_id, int(unit)], queue=settings.batch_queue)
 
 
 @app.task(name=SOLVE_TASK)
@@ -69,6 +80,15 @@ def batch_chunk(batch_id, chunk):
     from worker.run_batch import run_chunk
 
     return run_chunk(batch_store(), publish_chunk, batch_id, chunk)
+
+
+@app.task(name=CALIBRATION_TASK)
+def calibration_unit(cal_id, unit):
+    if not isinstance(cal_id, str) or not is_job_id(cal_id) or not isinstance(unit, int) or unit < 0:
+        raise Reject(f"not a calibration unit: {cal_id!r}, {unit!r}", requeue=False)
+    from worker.run_calibration import run_unit
+
+    return run_unit(calibration_store(), publish_calibration, cal_id, unit)
 
 
 def warm() -> None:
@@ -107,13 +127,15 @@ def concurrency_of(consumer) -> int | None:
 def _start_housekeeping(sender=None, **_):
     global _housekeeping
     from worker.run_batch import reconcile_batches
+    from worker.run_calibration import reconcile_calibrations
 
     info = {"name": f"{socket.gethostname()}:{os.getpid()}", "pid": os.getpid(), "started": time.time(),
             "concurrency": concurrency_of(sender)}
     _housekeeping = Periodic([partial(beat, store(), info),
                               partial(reconcile_jobs, store(), publish_job),
                               partial(reconcile_batches, batch_store(), publish_chunk),
-                              partial(clear_unacked, store(), batch_store())])
+                              partial(reconcile_calibrations, calibration_store(), publish_calibration),
+                              partial(clear_unacked, store(), batch_store(), calibrations=calibration_store())])
     _housekeeping.start()
 
 

@@ -8,7 +8,8 @@
 - ``clear_unacked``: messages that killed workers had taken stay in the broker's
   unacknowledged set until its visibility timeout (an hour), then come back as duplicates;
   the ones whose job or chunk is settled, queued again or re-claimed are removed.
-- batches add their own tick (``worker.run_batch.reconcile_batches``).
+- batches and calibrations add their own ticks (``worker.run_batch.reconcile_batches``,
+  ``worker.run_calibration.reconcile_calibrations``).
 
 Every step is atomic in Redis, so when several workers notice the same job only one
 republishes it, and claims are fenced, so a duplicate message is harmless. Removing an
@@ -80,7 +81,8 @@ def reconcile_jobs(store: JobStore, publish: Callable[[str], None],
         publish(job_id)
 
 
-def clear_unacked(store: JobStore, batches: BatchStore, limit: int = UNACKED_PER_TICK) -> int:
+def clear_unacked(store: JobStore, batches: BatchStore, limit: int = UNACKED_PER_TICK,
+                  calibrations=None) -> int:
     """Remove our queues' unacknowledged messages whose job or chunk no longer needs them.
 
     Kept: for each running job (chunk), the most recently delivered message, which may be
@@ -90,14 +92,17 @@ def clear_unacked(store: JobStore, batches: BatchStore, limit: int = UNACKED_PER
     """
     s = store.settings
     ours = {s.interactive_queue, s.batch_queue}
-    found = {}  # tag -> ('job', id) | ('chunk', (batch, i)); HSCAN may repeat a field
+    found = {}  # tag -> ('job', id) | ('chunk', (batch, i)) | ('unit', (calibration, i)); HSCAN may repeat a field
     for tag, raw in store.r.hscan_iter(messages.UNACKED, count=500):
         parsed = messages.unacked_entry(raw)
         if parsed is not None and parsed[1] in ours:
             job_id = messages.job_id_of(parsed[0])
             chunk = None if job_id else messages.chunk_of(parsed[0])
+            unit = None if job_id or chunk or calibrations is None else messages.calibration_unit_of(parsed[0])
             if job_id or chunk:
                 found[tag] = ("job", job_id) if job_id else ("chunk", chunk)
+            elif unit:
+                found[tag] = ("unit", unit)
         if len(found) >= limit:
             break
     if not found:
@@ -108,6 +113,8 @@ def clear_unacked(store: JobStore, batches: BatchStore, limit: int = UNACKED_PER
         pipe.zscore(messages.UNACKED_INDEX, tag)
         if kind == "job":
             pipe.hget(store.keys.job(what), "state")
+        elif kind == "unit":
+            pipe.hget(calibrations.keys.calibration_chunks(what[0]), f"s{what[1]}")
         else:
             pipe.hget(batches.keys.batch_chunks(what[0]), f"s{what[1]}")
     replies = pipe.execute()

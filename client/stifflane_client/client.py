@@ -9,6 +9,7 @@ from typing import Iterator
 import requests
 
 from stifflane_client.batches import BatchesMixin
+from stifflane_client.calibrations import CalibrationsMixin
 from stifflane_client.errors import ApiError, JobFailed
 from stifflane_client.progress import poll_until_done
 from stifflane_client.results import Result
@@ -55,7 +56,7 @@ class Job:
         return self
 
 
-class Client(BatchesMixin):
+class Client(BatchesMixin, CalibrationsMixin):
     """``Client(url=None, key=None)``: url defaults to $STIFFLANE_URL or http://127.0.0.1:8750,
     key to $STIFFLANE_KEY (sent as ``Authorization: Bearer <key>``)."""
 

@@ -83,5 +83,14 @@ class JobFailed(StifflaneError):
         super().__init__(ending(job))
 
 
+class CalibrationFailed(StifflaneError):
+    """The calibration failed or was cancelled; ``view`` is its last view (``message`` says why)."""
+
+    def __init__(self, view: dict):
+        self.view = view
+        state, message = view.get("state") or "", (view.get("message") or "").strip()
+        super().__init__(f"calibration {view.get('id', '')} {state}" + (f": {message}" if message else ""))
+
+
 class WaitTimeout(StifflaneError):
     """The job did not finish within the time given to ``wait``."""

@@ -193,7 +193,8 @@ def test_the_models_limits_in_the_document_are_the_engines():
 def test_every_example_spec_is_valid_against_the_document(doc):
     from tests.conftest import example_path
 
-    schemas = {"jobs": validator(doc, "JobSpec"), "models": validator(doc, "Model")}
+    schemas = {"jobs": validator(doc, "JobSpec"), "models": validator(doc, "Model"),
+               "calibrations": validator(doc, "CalibrationSpec")}
     paths = sorted(example_path().rglob("*.json"))
     assert len(paths) >= 2
     for path in paths:

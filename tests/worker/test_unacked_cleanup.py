@@ -107,3 +107,24 @@ def test_messages_name_their_job_or_chunk_and_pickles_are_never_read(ustore):
     assert messages.chunk_of(ustore.r.lindex(ustore.settings.batch_queue, -1)) == (rec.id, 3)
     pickled = envelope.replace(b'"application/json"', b'"application/x-python-serialize"')
     assert messages.job_id_of(pickled) is None and messages.job_id_of(b"not json") is None
+
+
+def test_a_settled_calibration_units_unacknowledged_message_is_removed(ustore):
+    """A calibration unit taken by a worker that then died: once the unit is settled (here by
+    another attempt), its message leaves the unacknowledged set; a running unit's stays."""
+    from jobs.calibration_store import CalibrationStore
+
+    store, pub = ustore, Publisher(ustore.settings)
+    cals = CalibrationStore(store.r, store.settings)
+    rec = cals.create({"spec": 1}, {}, ["k"], starts=4, chunk_size=2, seed=0, title="t", owner="ana")
+    pub.publish_calibration(rec.id, 0)
+    dead_tag = take(store, store.settings.batch_queue)
+    pub.publish_calibration(rec.id, 1)
+    live_tag = take(store, store.settings.batch_queue)
+    assert messages.calibration_unit_of(messages.unacked_entry(store.r.hget(messages.UNACKED, dead_tag))[0]) == (
+        rec.id, 0)
+    _, attempt = cals.claim_chunk(rec.id, 0)
+    assert cals.finish_chunk(rec.id, 0, attempt, (2, 0, 0), 0, (1.0, 0), b"") == 1
+    cals.claim_chunk(rec.id, 1)  # running: its newest message may be its live worker's
+    assert clear_unacked(store, BatchStore(store.r, store.settings), calibrations=cals) == 1
+    assert store.r.hexists(messages.UNACKED, live_tag) and not store.r.hexists(messages.UNACKED, dead_tag)
