@@ -182,7 +182,7 @@ def test_the_numerics_checks_become_422s_that_point_into_the_spec(client, monkey
     def check(problem):
         return [numerics.Issue(("experiments", 0, "observed", "A", 0), "a strange value"),
                 numerics.Issue(("unknowns", 0, "start"), "not a good start"),
-                numerics.Issue(("fix" + "ed", "k"), "held and estimated")]  # the numerics' name of "known"
+                numerics.Issue(("parameters", "k"), "held and estimated")]  # the numerics' name of "known"
 
     monkeypatch.setattr(numerics, "check", check)
     spec = with_experiment(data=[{"t": 5.0, "A": 0.5}, {"t": 1.0, "A": 1.5}])  # sorted: row 1 first
