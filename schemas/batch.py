@@ -173,6 +173,9 @@ class BatchSpecSchema(SpecSchema):
                                   if k not in self.load_fields):  # else the unknown field says it
             errors["_schema"] = ["give exactly one of 'members', 'grid' or 'sample'"]
         base = raw.get("base") if isinstance(raw.get("base"), dict) else {}
+        if "sensitivity" in base:  # not silently dropped: members do not carry sensitivities yet
+            errors.setdefault("base", {})["sensitivity"] = [
+                "sensitivities are computed for single jobs; submit the members that need them as jobs"]
         model = base.get("model")
         names = _model_names(model) if isinstance(model, dict) and isinstance(model.get("states"), dict) else None
         span = _partial(lambda: data["base"]["span"])

@@ -209,6 +209,7 @@ SEMANTIC_RULES: tuple[tuple[str, str], ...] = (
     (r"^/(base/)?tolerance/atol/[^/]+$", r"is not a state"),
     (r"^/(base/)?sensitivity/(parameters|initial)/\d+$", r"is not a (parameter|state)|named twice"),
     (r"^/(base/)?sensitivity/parameters$", r"at least one|at most"),
+    (r"^/base/sensitivity$", r"single jobs"),
     (r"^/(base/)?output$", r"output points"),               # more points than the server's cap
     (r"^/(members|grid|sample)(/.*)?$", r"is not a (parameter|state)|at most|give at least one"),
     (r"^/grid/(parameters|initial)/[^/]+$", r"log spacing"),

@@ -71,3 +71,10 @@ def test_unknown_or_missing_names_are_refused_with_the_field(client):
     assert "/sensitivity/initial/0" in text
     r = client.post("/v1/jobs", json=dict(DECAY, sensitivity={}))
     assert r.status_code == 422 and "at least one" in str(r.get_json())
+
+
+def test_a_batch_base_asking_for_sensitivities_is_refused_not_ignored(client):
+    spec = {"base": DECAY, "grid": {"parameters": {"k": {"values": [0.1, 0.2]}}}}
+    r = client.post("/v1/batches", json=spec)
+    assert r.status_code == 422
+    assert "single jobs" in str(r.get_json())
