@@ -22,7 +22,7 @@ from apispec.ext.marshmallow import MarshmallowPlugin
 from marshmallow import validate
 
 from schemas.batch import BatchSpecSchema, DistributionSchema, SummarySchema
-from schemas.job import MIN_ATOL, JobSpecSchema
+from schemas.job import MIN_ATOL, RANK_SUMMARIES, JobSpecSchema
 from schemas.problem import PROBLEM_MEDIA_TYPE, ProblemSchema
 from schemas.views import (BatchCreatedSchema, BatchPageSchema, BatchStatisticsSchema, BatchTableSchema,
                            BatchViewSchema, CreatedSchema, HealthSchema, JobPageSchema, JobViewSchema,
@@ -134,6 +134,17 @@ def _distribution_variants() -> list[dict]:
             for kind, fields in needs.items()]
 
 
+def _rank_variants() -> list[dict]:
+    """RankOutputSchema's summary-dependent fields (schemas/job.py, _needs) as a oneOf."""
+    needs = {"at": ("t",), "crossing": ("value",)}
+    other = [k for k in RANK_SUMMARIES if k not in needs]
+    variants = [(other, (), ())] + [([k], fields, ("direction",) if k == "crossing" else ())
+                                    for k, fields in needs.items()]
+    return [{"properties": {"state": {}, "summary": {"enum": kinds}, **{f: {} for f in (*fields, *optional)}},
+             "required": ["state", "summary", *fields], "additionalProperties": False}
+            for kinds, fields, optional in variants]
+
+
 _AXIS = {"description": "a list of values, or evenly spaced values {from, to, count, spacing}",
          "anyOf": [{"type": "array", "items": {"type": "number"}, "minItems": 1, "maxItems": 100_000},
                    _closed({"from": {"type": "number"}, "to": {"type": "number"},
@@ -158,6 +169,7 @@ REFINEMENTS: dict[str, dict] = {
     "Sample": {"properties": _BY_TARGET({"$ref": "#/components/schemas/Distribution"})},
     "Distribution": {"oneOf": _distribution_variants()},
     "Summary": {"oneOf": _summary_variants(), "properties": {"of": _NAME, "event": _NAME}},
+    "RankOutput": {"oneOf": _rank_variants(), "properties": {"state": _NAME}},
     # RFC 9457: extension members (errors, state) are allowed; type, title and status always come.
     "Problem": {"additionalProperties": True, "required": ["type", "title", "status"],
                 "properties": {"type": {"type": "string", "format": "uri"}}},
@@ -183,6 +195,9 @@ SEMANTIC_RULES: tuple[tuple[str, str], ...] = (
     (r"^/(base/)?output/first$", r"span"),
     (r"^/(base/)?(initial|parameters)/[^/]+$", r"is not a (state|parameter)"),
     (r"^/(base/)?tolerance/atol/[^/]+$", r"is not a state"),
+    (r"^/(base/)?sensitivity/(parameters|initial)(/\d+)?$",
+     r"is not a (state|parameter)|named twice|at least one|at most"),
+    (r"^/(base/)?sensitivity/rank/\d+/(state|t)$", r"is not a state|must lie in the span"),
     (r"^/(base/)?output$", r"output points"),               # more points than the server's cap
     (r"^/(members|grid|sample)(/.*)?$", r"is not a (parameter|state)|at most|give at least one"),
     (r"^/grid/(parameters|initial)/[^/]+$", r"log spacing"),

@@ -169,3 +169,11 @@ def test_output_labels():
     assert Output("B", "at", t=2.0).label() == "B at t=2"
     assert Output("B", "crossing", value=0.5, direction="rising").label() == "crossing B=0.5 rising"
     assert Output("B", "final").label() == "final B"
+
+
+def test_the_job_schema_offers_the_summaries_computed_here():
+    from calibration import ranking
+    from schemas import job
+
+    assert job.RANK_SUMMARIES == ranking.SUMMARIES and job.RANK_DIRECTIONS == ranking.DIRECTIONS
+    assert job.MAX_RANK_OUTPUTS == ranking.MAX_OUTPUTS
