@@ -6,6 +6,7 @@ RUN apt-get update && apt-get install -y --no-install-recommends build-essential
 WORKDIR /app
 COPY pyproject.toml README.md ./
 COPY engine engine
+COPY calibration calibration
 COPY schemas schemas
 COPY service service
 COPY worker worker

@@ -115,6 +115,29 @@ def _units(result: dict) -> str | None:
     return "\nUnits\n" + table([[name, unit] for name, unit in units.items()], ["name", "unit"])
 
 
+def _ranking(result: dict) -> str | None:
+    """Which parameters matter: per ranked output, its value and the parameters by |d ln output /
+    d ln θ| (sensitivity.rank in the spec), reactions named beside their rate constants."""
+    ranked = (result.get("sensitivity") or {}).get("ranking") or []
+    if not ranked:
+        return None
+    parts = ["\nWhich parameters matter (normalised sensitivity d ln(output) / d ln θ, largest first)"]
+    for row in ranked:
+        summary = row.get("output", {}).get("summary")
+        what = "delay" if summary == "crossing" else "value"
+        where = f", t = {_num(row['t'])}" if row.get("t") is not None and summary != "crossing" else \
+            (f", at t = {_num(row['t'])}" if row.get("t") is not None else "")
+        parts.append(f"\n{row.get('label', '')}: {what} {_num(row.get('value'))}{where}")
+        if row.get("note"):
+            parts.append(f"  note: {_sentence(row['note'])}")
+        entries = row.get("entries") or []
+        if entries and any(e.get("normalised") is not None or e.get("raw") is not None for e in entries):
+            rows = [[k, e["wrt"], ", ".join(e.get("reactions") or []) or "-", e.get("normalised"), e.get("raw")]
+                    for k, e in enumerate(entries, start=1)]
+            parts.append(table(rows, ["rank", "θ", "reactions", "normalised", "raw"]))
+    return "\n".join(parts)
+
+
 def format_report(result: dict) -> str:
     """The stiffness report of a result JSON as readable text."""
     rep = result.get("report") or {}
@@ -151,7 +174,7 @@ def format_report(result: dict) -> str:
                 for s in samples]
         parts.append("\nStiffness along the run\n" + table(rows, ["t", "spectral radius", "stiffness ratio",
                                                                   "explicit step"]))
-    for extra in (_events(result), _units(result)):
+    for extra in (_events(result), _units(result), _ranking(result)):
         if extra:
             parts.append(extra)
     for w in rep.get("warnings") or []:
@@ -175,7 +198,8 @@ def register(sub) -> None:
     p = sub.add_parser("report", help="show a job's stiffness report as tables",
                        description="Show the solver's report of a job: how it ended, work counters, "
                                    "steps per method, method switches, stiffness samples, events (name, "
-                                   "time, state values) and units. A failed, cancelled or running job's "
+                                   "time, state values), units, and the parameters ranked by the outputs "
+                                   "the spec names in sensitivity.rank. A failed, cancelled or running job's "
                                    "report covers the run so far and says the result is partial (exit "
                                    "code 1).")
     p.add_argument("job_id")

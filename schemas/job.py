@@ -200,6 +200,36 @@ class LimitsSchema(SpecSchema):
 
 
 MAX_SENSITIVITIES = 100  # parameters and initial values together
+# outputs a job may rank its sensitivity parameters by (calibration.ranking computes them)
+RANK_SUMMARIES = ("at", "final", "max", "integral", "crossing")
+RANK_DIRECTIONS = ("both", "rising", "falling")
+MAX_RANK_OUTPUTS = 20
+
+
+class RankOutputSchema(SpecSchema):
+    """One output to rank the sensitivity parameters by: a summary of one state."""
+
+    state = fields.String(required=True, metadata={"description": "the state the output is read from"})
+    summary = fields.String(required=True, validate=Choice(RANK_SUMMARIES), metadata={
+        "description": "at: the state at time t; final: at the last output time; max: its largest "
+                       "value; integral: trapezoid over the output times; crossing: the delay from "
+                       "the span's start until it first passes value"})
+    t = FiniteFloat(metadata={"description": "summary 'at': the time (within the span)"})
+    value = FiniteFloat(metadata={"description": "summary 'crossing': the value the state passes"})
+    direction = fields.String(validate=Choice(RANK_DIRECTIONS), metadata={
+        "description": "summary 'crossing': count passages upwards (rising), downwards (falling) or "
+                       "either (both, the default)"})
+
+    @validates_schema(skip_on_field_errors=True)
+    def _needs(self, data, **kwargs):
+        summary = data["summary"]
+        if summary == "at" and "t" not in data:
+            raise ValidationError("is required for summary 'at': the time to read the state at", "t")
+        if summary == "crossing" and "value" not in data:
+            raise ValidationError("is required for summary 'crossing': the value the state passes", "value")
+        for name, owner in (("t", "at"), ("value", "crossing"), ("direction", "crossing")):
+            if name in data and summary != owner:
+                raise ValidationError(f"only for summary '{owner}', not '{summary}'", name)
 
 
 class SensitivitySchema(SpecSchema):
@@ -210,6 +240,10 @@ class SensitivitySchema(SpecSchema):
     error_control = StrictBoolean(load_default=True, metadata={
         "description": "let the sensitivities steer the step size like the states (default); false "
                        "carries them along at the states' steps"})
+    rank = fields.List(fields.Nested(RankOutputSchema), validate=validate.Length(max=MAX_RANK_OUTPUTS),
+                       metadata={"description": "outputs to rank the parameters and initial values by "
+                                                "normalised sensitivity d ln(output) / d ln θ, signed; the "
+                                                "result carries the ranking in sensitivity.ranking"})
 
     @validates_schema(skip_on_field_errors=True)
     def _some(self, data, **kwargs):
@@ -297,6 +331,19 @@ class JobSpecSchema(SpecSchema):
                         elif isinstance(name, str) and name in names[:pos]:
                             errors.setdefault("sensitivity", {}).setdefault(section, {})[pos] = [
                                 f"'{name}' is named twice"]
+                ranked = sens.get("rank") if isinstance(sens.get("rank"), list) else []
+                wrong: dict = {}
+                for pos, item in enumerate(ranked):
+                    if not isinstance(item, dict):
+                        continue
+                    name, at = item.get("state"), item.get("t")
+                    if isinstance(name, str) and name not in states:
+                        wrong.setdefault(pos, {})["state"] = [f"'{name}' is not a state of the model"
+                                                              + did_you_mean(name, states)]
+                    if span and span[1] > span[0] and isinstance(at, float) and not span[0] <= at <= span[1]:
+                        wrong.setdefault(pos, {})["t"] = [f"must lie in the span {span}"]
+                if wrong:
+                    errors.setdefault("sensitivity", {})["rank"] = wrong
             tolerance = data.get("tolerance")
             atol = tolerance.get("atol") if isinstance(tolerance, dict) else None
             if isinstance(atol, dict):

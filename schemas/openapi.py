@@ -24,7 +24,7 @@ from marshmallow import validate
 from schemas.batch import BatchSpecSchema, DistributionSchema, SummarySchema
 from schemas.calibration import (OBSERVABLE_NAME, CalibrationCreatedSchema, CalibrationPageSchema,
                                  CalibrationSpecSchema, CalibrationViewSchema, EstimateSchema, NoiseSchema)
-from schemas.job import MIN_ATOL, JobSpecSchema
+from schemas.job import MIN_ATOL, RANK_SUMMARIES, JobSpecSchema
 from schemas.problem import PROBLEM_MEDIA_TYPE, ProblemSchema
 from schemas.views import (BatchCreatedSchema, BatchPageSchema, BatchStatisticsSchema, BatchTableSchema,
                            BatchViewSchema, CreatedSchema, HealthSchema, JobPageSchema, JobViewSchema,
@@ -136,6 +136,17 @@ def _distribution_variants() -> list[dict]:
             for kind, fields in needs.items()]
 
 
+def _rank_variants() -> list[dict]:
+    """RankOutputSchema's summary-dependent fields (schemas/job.py, _needs) as a oneOf."""
+    needs = {"at": ("t",), "crossing": ("value",)}
+    other = [k for k in RANK_SUMMARIES if k not in needs]
+    variants = [(other, (), ())] + [([k], fields, ("direction",) if k == "crossing" else ())
+                                    for k, fields in needs.items()]
+    return [{"properties": {"state": {}, "summary": {"enum": kinds}, **{f: {} for f in (*fields, *optional)}},
+             "required": ["state", "summary", *fields], "additionalProperties": False}
+            for kinds, fields, optional in variants]
+
+
 _AXIS = {"description": "a list of values, or evenly spaced values {from, to, count, spacing}",
          "anyOf": [{"type": "array", "items": {"type": "number"}, "minItems": 1, "maxItems": 100_000},
                    _closed({"from": {"type": "number"}, "to": {"type": "number"},
@@ -182,6 +193,7 @@ REFINEMENTS: dict[str, dict] = {
                                   "sigma": {"type": "array", "minItems": 1, "items": _ROW}}},
     "Unknown": {"properties": {"name": {"type": "string", "minLength": 1, "maxLength": 69,
                                         "description": "a parameter, or init:<state> for an initial value"}}},
+    "RankOutput": {"oneOf": _rank_variants(), "properties": {"state": _NAME}},
     # RFC 9457: extension members (errors, state) are allowed; type, title and status always come.
     "Problem": {"additionalProperties": True, "required": ["type", "title", "status"],
                 "properties": {"type": {"type": "string", "format": "uri"}}},
@@ -210,6 +222,9 @@ SEMANTIC_RULES: tuple[tuple[str, str], ...] = (
     (r"^/(base/)?sensitivity/(parameters|initial)/\d+$", r"is not a (parameter|state)|named twice"),
     (r"^/(base/)?sensitivity/parameters$", r"at least one|at most"),
     (r"^/base/sensitivity$", r"single jobs"),
+    (r"^/(base/)?sensitivity/(parameters|initial)(/\d+)?$",
+     r"is not a (state|parameter)|named twice|at least one|at most"),
+    (r"^/(base/)?sensitivity/rank/\d+/(state|t)$", r"is not a state|must lie in the span"),
     (r"^/(base/)?output$", r"output points"),               # more points than the server's cap
     (r"^/(members|grid|sample)(/.*)?$", r"is not a (parameter|state)|at most|give at least one"),
     (r"^/grid/(parameters|initial)/[^/]+$", r"log spacing"),

@@ -73,7 +73,9 @@ class ResultSchema(Schema):
     sensitivity = fields.Dict(metadata={
         "description": "present when the spec asked for sensitivities: wrt (labels: parameter names and "
                        "init:<state>), values (θ), error_control, raw {state: {label: [dy/dθ at each time]}}, "
-                       "normalised {state: {label: [d ln y / d ln θ]}} (null where y or θ is 0)"})
+                       "normalised {state: {label: [d ln y / d ln θ]}} (null where y or θ is 0); with "
+                       "sensitivity.rank in the spec, ranking: [{output, label, value, t, entries: [{wrt, "
+                       "reactions, normalised, raw}] by |normalised| descending, note?}]"})
     caution = fields.String()
 
 

@@ -223,9 +223,22 @@ def get_result(job_id: str):
         snapshot (rows thinned to about 2000, rewritten every 2 s or so) is served with
         `partial` true and `Cache-Control: no-store`. 409 `result-not-ready` before the first
         snapshot (Retry-After), 409 `no-result` for a job that ended before the solver ran
-        (its message says why).
+        (its message says why). A spec with `sensitivity` gets the sensitivities dy/dθ (raw and
+        normalised) in every format; with `sensitivity.rank`, a succeeded job's JSON carries
+        `sensitivity.ranking` (per output: its value and the parameters sorted by |d ln output /
+        d ln θ|, reactions named beside their rate constants), and `table=ranking` serves that
+        ranking as CSV (409 `result-not-ready` while the job waits or runs, 404 `no-ranking` when
+        the spec asked for none or the run did not succeed).
       operationId: getResult
-      parameters: [JobId, Format]
+      parameters:
+        - JobId
+        - Format
+        - name: table
+          in: query
+          description: >-
+            outputs (default): the time series; ranking: the sensitivity ranking, one row per
+            output and parameter (CSV only; format defaults to csv)
+          schema: {type: string, enum: [outputs, ranking]}
       responses:
         200:
           description: the result, whole or partial
@@ -238,6 +251,12 @@ def get_result(job_id: str):
         409: Conflict
     """
     rec = _find(job_id)
+    table = request.args.get("table", "outputs")
+    if table not in ("outputs", "ranking"):
+        raise ApiProblem(400, "Bad Request", "table must be 'outputs' or 'ranking'",
+                         errors=[{"pointer": "/query/table", "detail": f"unknown table {table[:40]!r}"}])
+    if table == "ranking":
+        return _ranking_table(job_id, rec)
     fmt = results.negotiate(request.args.get("format"), request.accept_mimetypes)
     if fmt is None:
         raise ApiProblem(406, "Not Acceptable", "results come as json, csv or npz (format= or Accept)")
@@ -274,6 +293,27 @@ def get_result(job_id: str):
         headers["Content-Disposition"] = f'attachment; filename="{job_id}.npz"'
         return Response(results.as_npz(blob, **override), mimetype="application/x-npz", headers=headers)
     return _json(results.as_json(job_id, blob, rec.state, **override), 200, headers)
+
+
+def _ranking_table(job_id: str, rec: JobRecord) -> Response:
+    """The sensitivity ranking of a finished job as CSV (the JSON result carries it too)."""
+    fmt = request.args.get("format", "csv")
+    if fmt != "csv":
+        raise ApiProblem(406, "Not Acceptable", "the ranking table comes as csv; the JSON result carries "
+                                                "the same ranking in sensitivity.ranking")
+    if rec.state in ("queued", "running"):
+        raise ApiProblem(409, "Result not ready", f"the job is {rec.state}; its ranking comes with its result",
+                         kind="result-not-ready", state=rec.state, headers={"Retry-After": "1"})
+    blob = _ctx().store.result_blob(job_id) if rec.state == "succeeded" else None
+    if blob is None and rec.state == "succeeded":
+        raise ApiProblem(404, "Not Found", "the result has expired", kind="result-expired")
+    if blob is None or not results.has_ranking(blob):
+        raise ApiProblem(404, "Not Found", "this job has no sensitivity ranking: its spec names no outputs in "
+                                           "sensitivity.rank, or its run did not succeed",
+                         kind="no-ranking", state=rec.state)
+    return Response(results.ranking_csv(blob), mimetype="text/csv",
+                    headers={"ETag": rec.etag, "Cache-Control": "private, max-age=3600",
+                             "Content-Disposition": f'attachment; filename="{job_id}-ranking.csv"'})
 
 
 def _live(store, rec: JobRecord, current_attempt: bool) -> bytes | None:

@@ -104,7 +104,41 @@ def _sensitivity_json(meta: dict, arrays: dict) -> dict | None:
             "raw": {name: {label: finite(raw[:, i, j]) for j, label in enumerate(labels)}
                     for i, name in enumerate(names)},
             "normalised": {name: {label: finite(norm[:, i, j]) for j, label in enumerate(labels)}
-                           for i, name in enumerate(names)}}
+                           for i, name in enumerate(names)},
+            **({"ranking": ranking} if (ranking := meta["sensitivity"].get("ranking")) is not None else {})}
+
+
+def has_ranking(blob: bytes) -> bool:
+    meta, _ = result_blob.decode(blob)
+    return (meta.get("sensitivity") or {}).get("ranking") is not None
+
+
+RANKING_COLUMNS = ["output", "state", "summary", "t", "value", "rank", "wrt", "reactions", "normalised", "raw",
+                   "note"]
+
+
+def ranking_csv(blob: bytes) -> str:
+    """The ranking (sensitivity.rank of the spec) as one row per output and parameter, in each
+    output's order (|normalised| descending); empty cells where a number is undefined."""
+    meta, _ = result_blob.decode(blob)
+    buf = io.StringIO()
+    buf.write(CAUTION_CSV_LINE + "\n")
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(RANKING_COLUMNS)
+
+    def cell(v):
+        return "" if v is None else repr(float(v))
+
+    for row in (meta.get("sensitivity") or {}).get("ranking") or []:
+        out = row["output"]
+        head = [row.get("label", ""), out["state"], out["summary"], cell(row.get("t")), cell(row.get("value"))]
+        note = row.get("note", "")
+        if not row["entries"]:
+            writer.writerow([*head, "", "", "", "", "", note])
+        for k, e in enumerate(row["entries"], start=1):
+            writer.writerow([*head, k, e["wrt"], ";".join(e["reactions"]), cell(e["normalised"]), cell(e["raw"]),
+                             note])
+    return buf.getvalue()
 
 
 def partial_line(meta: dict) -> str:

@@ -14,6 +14,7 @@ import traceback
 
 from marshmallow import ValidationError
 
+from calibration import ranking
 from engine.kernels import native
 from engine.integrate import CANCELLED, SUCCEEDED, Reached, integrate
 from engine.model import ModelError, prepare
@@ -182,6 +183,29 @@ def digest(report: dict, prepare_seconds: float) -> dict:
     return out
 
 
+def _own_key(sm):
+    """The augmented model under a content hash of its own: it is prepared with the model's
+    hash, under which native.choose keeps the plain model's machine code (and that of any other
+    choice of sensitivity parameters) - a kernel of another size."""
+    key = f"{sm.base.content_hash}:sens:{','.join(sm.wrt)}"
+    return dataclasses.replace(sm.augmented, content_hash=key)
+
+
+def _ranking(job_id: str, spec: dict, sm, theta, p, t, y, raw) -> list[dict]:
+    """The ranking of the sensitivity parameters by the outputs the spec names; an output that
+    cannot be ranked carries a note, and an unexpected error notes every output (the job's
+    result stands)."""
+    outputs = spec["sensitivity"]["rank"]
+    try:
+        return result_blob.json_safe(ranking.rank(spec["model"], sm.base.state_names, sm.wrt, theta, p, t, y,
+                                                  raw, outputs))
+    except Exception as e:  # never lose a solved result to its ranking
+        log.error("job %s: ranking failed:\n%s", job_id, traceback.format_exc())
+        return [{"output": ranking.Output.from_json(o).to_json(), "label": ranking.Output.from_json(o).label(),
+                 "value": None, "t": None, "entries": [],
+                 "note": f"could not be computed (internal error: {type(e).__name__})"} for o in outputs]
+
+
 def run_job(store: JobStore, job_id: str) -> str:
     """Claim and run ``job_id``. Returns what happened (for logs and tests)."""
     status, attempt = store.claim(job_id)
@@ -216,7 +240,7 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
             if sens:  # the model with its sensitivity equations (engine.sensitivities)
                 sm = prepare_sensitivities(spec["model"], sens["parameters"], sens["initial"])
                 base = sm.base
-                prepared, machine_code = native.choose(sm.augmented, spec["machine_code"])
+                prepared, machine_code = native.choose(_own_key(sm), spec["machine_code"])
             else:
                 prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
                 base = prepared
@@ -270,5 +294,8 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
         arrays["sensitivity"] = sens_values.raw
         meta["sensitivity"] = {"wrt": list(sm.wrt), "theta": [float(v) for v in theta],
                                "error_control": bool(sens["error_control"])}
+        if sens.get("rank") and state == "succeeded":  # which parameters matter (calibration.ranking)
+            meta["sensitivity"]["ranking"] = _ranking(job_id, spec, sm, theta, p, sol.t, sol.y[:, :n],
+                                                      sens_values.raw)
     blob = result_blob.encode(meta, arrays)
     return state, sol.outcome, sol.message, summary, blob, progress_reached(sol.t_reached, spec["span"])

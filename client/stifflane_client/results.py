@@ -26,7 +26,9 @@ class Result:
     ``partial`` is True for a failed, cancelled or still running job: the arrays then hold
     the output times reached, up to ``t_reached`` (``message`` says why it stopped).
     ``units`` maps state and parameter names to the model's unit labels (names without
-    one are absent; the .npz form carries the states' and derived quantities' only)."""
+    one are absent; the .npz form carries the states' and derived quantities' only).
+    ``sensitivity`` is the JSON form's sensitivity block when the spec asked for one (wrt,
+    values, raw and normalised by state and θ, and ``ranking`` with ``sensitivity.rank``)."""
 
     id: str
     t: np.ndarray
@@ -45,6 +47,7 @@ class Result:
     t_end: float | None = None
     units: dict = field(default_factory=dict)
     events: list = field(default_factory=list)
+    sensitivity: dict = field(default_factory=dict)
 
     @classmethod
     def from_json(cls, body: dict) -> "Result":
@@ -57,7 +60,7 @@ class Result:
                    body.get("caution") or CAUTION, state=body.get("state") or "",
                    partial=bool(body.get("partial", False)), t_reached=body.get("t_reached"),
                    t_end=body.get("t_end"), units=dict(body.get("units") or {}),
-                   events=list(body.get("events") or []))
+                   events=list(body.get("events") or []), sensitivity=dict(body.get("sensitivity") or {}))
 
     @classmethod
     def from_npz(cls, job_id: str, data: bytes) -> "Result":
@@ -103,6 +106,42 @@ class Result:
     def table(self) -> np.ndarray:
         """One 2-D array, columns in the order of ``columns`` (the CSV's layout)."""
         return np.column_stack([self.t, self.y, self.derived]) if len(self.t) else np.zeros((0, len(self.columns)))
+
+    def sensitivities(self, state: str, normalised: bool = True) -> np.ndarray:
+        """d ln y / d ln θ (or dy/dθ with ``normalised=False``) of ``state``: len(t) x len(θ),
+        columns in the order of ``sensitivity["wrt"]`` (NaN where undefined)."""
+        if not self.sensitivity:
+            raise KeyError("this result has no sensitivities: the job spec names none (sensitivity)")
+        by_label = self.sensitivity["normalised" if normalised else "raw"][state]
+        return np.column_stack([_array(by_label[w]) for w in self.sensitivity["wrt"]])
+
+    @property
+    def ranking(self) -> list:
+        """Per output named in the spec's sensitivity.rank: ``output``, ``label``, ``value``,
+        ``t`` and ``entries`` [{wrt, reactions, normalised, raw}] by |normalised| descending
+        ([] when the spec asked for no ranking)."""
+        return list(self.sensitivity.get("ranking") or [])
+
+    def ranking_table(self):
+        """The ranking as a pandas DataFrame, one row per output and θ (the server's
+        ``?table=ranking`` CSV): output, state, summary, t, value, rank, wrt, reactions,
+        normalised, raw, note (requires pandas)."""
+        try:
+            import pandas as pd
+        except ImportError as e:  # optional dependency
+            raise ImportError("ranking_table needs pandas: pip install 'stifflane-client[pandas]'") from e
+        rows = []
+        for out in self.ranking:
+            head = {"output": out.get("label", ""), "state": out["output"]["state"],
+                    "summary": out["output"]["summary"], "t": out.get("t"), "value": out.get("value")}
+            for k, e in enumerate(out.get("entries") or [], start=1):
+                rows.append({**head, "rank": k, "wrt": e["wrt"], "reactions": ";".join(e.get("reactions") or []),
+                             "normalised": e.get("normalised"), "raw": e.get("raw"), "note": out.get("note", "")})
+        columns = ["output", "state", "summary", "t", "value", "rank", "wrt", "reactions", "normalised", "raw", "note"]
+        frame = pd.DataFrame(rows, columns=columns)
+        for name in ("t", "value", "normalised", "raw"):
+            frame[name] = pd.to_numeric(frame[name], errors="coerce")
+        return frame
 
     def to_dataframe(self):
         """A pandas DataFrame indexed by t (requires pandas)."""

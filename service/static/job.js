@@ -1,5 +1,6 @@
 // One job: live progress, trajectories (live while it runs, partial when it stopped early),
-// the stiffness report drawn, events, downloads, the spec.
+// sensitivities and the ranking of parameters by the outputs the spec names, the stiffness
+// report drawn, events, downloads, the spec.
 (function () {
   'use strict';
   const { api, download, esc, num, duration, elapsed, stateBadge, problemText } = window.SL;
@@ -7,10 +8,11 @@
   const jobId = decodeURIComponent(location.pathname.split('/').pop());
   const ACTIVE = new Set(['queued', 'running']);
   const LIVE_EVERY_MS = 2000;  // a running job's snapshot is re-read this often
-  const view = { tx: 'lin', ty: 'lin', sx: 'lin' };
+  const view = { tx: 'lin', ty: 'lin', sx: 'lin', sk: 'normalised' };
   const chosen = new Set();    // axes the user has set: the stiff-run default leaves them alone
   let job = null, etag = null, result = null, spec = null, charts = { trajPanels: [] }, picked = null;
   let resultFinal = false, resultAt = 0, resultBusy = false, noResult = null, pickNames = '';
+  let sensState = null;        // the state whose sensitivities are drawn (kept across refreshes)
 
   const $ = id => document.getElementById(id);
 
@@ -181,6 +183,7 @@
     drawAll();
     showReport();
     showEvents();
+    showRanking();
   }
 
   function showPartial() {
@@ -394,7 +397,85 @@
       xlabel: 't', ylabel: 'relative drift' });
   }
 
-  function drawAll() { drawTrajectories(); drawSteps(); drawStiffness(); drawDrift(); }
+  function drawAll() { drawTrajectories(); drawSensitivities(); drawSteps(); drawStiffness(); drawDrift(); }
+
+  // ---- sensitivities dy/dθ of one state, one line per θ (spec field sensitivity)
+
+  function sensStates() {
+    const s = result.sensitivity;
+    return s && s.raw ? Object.keys(s.raw) : [];
+  }
+
+  function drawSensitivities() {
+    P.destroy(charts.sens);
+    charts.sens = null;
+    const sens = result.sensitivity, card = $('sens-card');
+    const states = sensStates();
+    card.classList.toggle('hidden', !states.length);
+    if (!states.length) return;
+    const ranked = (sens.ranking || []).map(r => r.output && r.output.state).filter(n => states.includes(n));
+    if (!states.includes(sensState)) sensState = ranked[0] || states[0];
+    const sel = $('sens-state');
+    if (sel.dataset.names !== states.join('\n')) {
+      sel.dataset.names = states.join('\n');
+      sel.innerHTML = states.map(n => `<option value="${esc(n)}">${esc(n)}</option>`).join('');
+    }
+    sel.value = sensState;
+    const normalised = view.sk !== 'raw';
+    const by = (normalised ? sens.normalised : sens.raw)[sensState] || {};
+    const labels = sens.wrt || Object.keys(by);
+    const series = labels.map((w, i) => ({ label: w, values: by[w] || [], color: P.PALETTE[i % P.PALETTE.length] }));
+    const unit = unitOf(sensState);
+    const ylabel = normalised ? `d ln ${sensState} / d ln θ` : `d${sensState} / dθ` + (unit ? ` [${unit} per unit of θ]` : '');
+    charts.sens = P.lineChart($('sens'), Object.assign({ x: result.times, series, xlog: view.tx === 'log', ylog: false,
+      height: 300, xlabel: 't', ylabel, events: events(), sync: 'traj-' + jobId }, partialX()));
+    const blanks = normalised && series.some(s => s.values.some(v => v == null));
+    $('sens-note').textContent = (normalised
+      ? `Relative change of ${sensState} per relative change of each θ (raw dy/dθ · θ / y)` +
+        (blanks ? `; blank where ${sensState} or θ is 0, which has no relative change.` : '.')
+      : `Change of ${sensState} per unit change of each θ, in the state's unit divided by θ's.`) +
+      (sens.error_control === false ? ' The sensitivities did not steer the step size (error_control false).' : '');
+  }
+
+  // ---- the ranking: per output a signed bar chart and a table (spec field sensitivity.rank)
+
+  function showRanking() {
+    const ranked = (result.sensitivity && result.sensitivity.ranking) || [];
+    $('rank-card').classList.toggle('hidden', !ranked.length);
+    if (!ranked.length) { $('ranking').innerHTML = ''; return; }
+    $('ranking').innerHTML = ranked.map(rankBlock).join('');
+  }
+
+  function signed(v) { return v == null ? '—' : (v > 0 ? '+' : v < 0 ? '−' : '') + num(Math.abs(v)); }
+
+  function rankBlock(r, k) {
+    const out = r.output || {};
+    const what = out.summary === 'crossing' ? 'delay' : out.summary === 'integral' ? 'integral' : 'value';
+    const at = r.t != null && out.summary !== 'integral' ? ` at t = ${num(r.t)}` : '';
+    const head = `<h3 class="rank-title">${esc(r.label || out.state)}<span class="muted"> — ${what} ` +
+      `${r.value == null ? '—' : num(r.value)}${esc(at)}</span></h3>`;
+    const note = r.note ? `<div class="notice">${esc(r.note)}</div>` : '';
+    const entries = (r.entries || []).filter(e => e.normalised != null || e.raw != null);
+    if (!entries.length) return `<div class="rank-output" data-output="${k}">${head}${note}</div>`;
+    const top = Math.max(...entries.map(e => Math.abs(e.normalised || 0))) || 1;
+    const name = e => `<span class="mono">${esc(e.wrt)}</span>` +
+      ((e.reactions || []).length ? ` <span class="muted">${esc(e.reactions.join(', '))}</span>` : '');
+    const bars = entries.map(e => {
+      const v = e.normalised, w = v == null ? 0 : (100 * Math.abs(v) / top).toFixed(1);
+      return `<div class="rank-row" data-wrt="${esc(e.wrt)}"><span class="rank-name">${name(e)}</span>` +
+        `<span class="rank-neg">${v != null && v < 0 ? `<i data-w="${w}"></i>` : ''}</span>` +
+        `<span class="rank-pos">${v != null && v > 0 ? `<i data-w="${w}"></i>` : ''}</span>` +
+        `<span class="rank-val">${signed(v)}</span></div>`;
+    }).join('');
+    const table = '<table class="data compact"><thead><tr><th class="num">rank</th><th>θ</th><th>reactions</th>' +
+      '<th class="num">normalised</th><th class="num">raw</th></tr></thead><tbody>' +
+      entries.map((e, i) => `<tr><td class="num">${i + 1}</td><td class="mono">${esc(e.wrt)}</td>` +
+        `<td>${esc((e.reactions || []).join(', ') || '—')}</td><td class="num">${signed(e.normalised)}</td>` +
+        `<td class="num">${signed(e.raw)}</td></tr>`).join('') + '</tbody></table>';
+    return `<div class="rank-output" data-output="${k}">${head}${note}<div class="rank-grid">` +
+      `<div class="rank-bars" aria-label="normalised sensitivities of ${esc(r.label || '')}">${bars}</div>` +
+      `<div class="scroll-x">${table}</div></div></div>`;
+  }
 
   function showReport() {
     const r = result.report || {};
@@ -466,11 +547,15 @@
         view[axis] = b.dataset.v; chosen.add(axis); paintSegs();
         if (!result) return;
         if (axis === 'sx') drawSteps();
-        else { drawTrajectories(); if (axis === 'tx') { drawStiffness(); drawDrift(); } }
+        else if (axis === 'sk') drawSensitivities();
+        else { drawTrajectories(); if (axis === 'tx') { drawSensitivities(); drawStiffness(); drawDrift(); } }
       });
     });
     document.querySelectorAll('#downloads button').forEach(b => b.onclick = () =>
       download(`/v1/jobs/${encodeURIComponent(jobId)}/result?format=${b.dataset.fmt}`, `${jobId}.${b.dataset.fmt}`));
+    $('sens-state').onchange = ev => { sensState = ev.target.value; if (result) drawSensitivities(); };
+    $('rank-csv').onclick = () => download(`/v1/jobs/${encodeURIComponent(jobId)}/result?table=ranking`,
+      `${jobId}-ranking.csv`);
     $('cancel').onclick = async () => {
       const resp = await api(`/v1/jobs/${encodeURIComponent(jobId)}/cancel`, { method: 'POST' });
       if (!resp.ok && resp.status !== 202) alert(await problemText(resp));
