@@ -183,14 +183,6 @@ def digest(report: dict, prepare_seconds: float) -> dict:
     return out
 
 
-def _own_key(sm):
-    """The augmented model under a content hash of its own: it is prepared with the model's
-    hash, under which native.choose keeps the plain model's machine code (and that of any other
-    choice of sensitivity parameters) - a kernel of another size."""
-    key = f"{sm.base.content_hash}:sens:{','.join(sm.wrt)}"
-    return dataclasses.replace(sm.augmented, content_hash=key)
-
-
 def _ranking(job_id: str, spec: dict, sm, theta, p, t, y, raw) -> list[dict]:
     """The ranking of the sensitivity parameters by the outputs the spec names; an output that
     cannot be ranked carries a note, and an unexpected error notes every output (the job's
@@ -240,7 +232,7 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
             if sens:  # the model with its sensitivity equations (engine.sensitivities)
                 sm = prepare_sensitivities(spec["model"], sens["parameters"], sens["initial"])
                 base = sm.base
-                prepared, machine_code = native.choose(_own_key(sm), spec["machine_code"])
+                prepared, machine_code = native.choose(sm.augmented, spec["machine_code"])  # its own content hash
             else:
                 prepared, machine_code = native.choose(prepare(spec["model"]), spec["machine_code"])
                 base = prepared
