@@ -7,6 +7,7 @@ WORKDIR /app
 COPY pyproject.toml README.md ./
 COPY engine engine
 COPY calibration calibration
+COPY sweeps sweeps
 COPY schemas schemas
 COPY service service
 COPY worker worker
