@@ -11,13 +11,13 @@ from __future__ import annotations
 import json
 import math
 import time
-import zlib
 from dataclasses import dataclass
 from typing import Optional
 
 import redis
 
 from jobs import batch_lifecycle as L
+from jobs.blob import pack_json as _pack, unpack_json as _unpack
 from jobs.keys import Keys, new_job_id
 from jobs.settings import Settings
 
@@ -92,12 +92,6 @@ def _record(batch_id: str, values: list) -> Optional[BatchRecord]:
         columns=json.loads(_s(d["columns"]) or "{}"))
 
 
-def _pack(obj) -> bytes:
-    return zlib.compress(json.dumps(obj, separators=(",", ":"), allow_nan=False).encode())
-
-
-def _unpack(blob) -> Optional[dict]:
-    return None if blob is None else json.loads(zlib.decompress(blob))
 
 
 def chunk_size_for(total: int, wanted: int, max_chunks: int) -> int:

@@ -10,6 +10,7 @@ import json
 import math
 import struct
 import zlib
+from typing import Optional
 
 import numpy as np
 
@@ -53,3 +54,12 @@ def decode(blob: bytes) -> tuple[dict, dict[str, np.ndarray]]:
         arrays[name] = np.frombuffer(raw, dtype="<f8", count=count, offset=offset).reshape(shape)
         offset += 8 * count
     return header["meta"], arrays
+
+
+def pack_json(obj) -> bytes:
+    """A JSON-safe object as compact, zlib-compressed JSON (chunk tables, start outcomes)."""
+    return zlib.compress(json.dumps(obj, separators=(",", ":"), allow_nan=False).encode())
+
+
+def unpack_json(blob) -> Optional[dict]:
+    return None if blob is None else json.loads(zlib.decompress(blob))

@@ -22,6 +22,8 @@ KEYS for every script: calibration hash, chunk hash, lease zset, active zset, ac
 hash, then extras. Time comes from Redis (``TIME``) inside every script.
 """
 
+from jobs import batch_lifecycle
+
 _COMMON = """
 local function redis_now()
   local t = redis.call('TIME')
@@ -113,14 +115,8 @@ if state == 'queued' then redis.call('HSET', KEYS[1], 'state', 'running', 'start
 return {'claimed', attempt}
 """
 
-# ARGV: chunk, attempt, lease_seconds. Returns -1 when fenced out, else the cancel flag.
-HEARTBEAT = _COMMON + """
-local i = ARGV[1]
-if redis.call('HGET', KEYS[2], 's' .. i) ~= 'r' then return -1 end
-if redis.call('HGET', KEYS[2], 'a' .. i) ~= ARGV[2] then return -1 end
-redis.call('ZADD', KEYS[3], redis_now() + tonumber(ARGV[3]), i)
-return tonumber(redis.call('HGET', KEYS[1], 'cancel') or '0')
-"""
+# the chunk lease: the batches' own script (same keys: record, chunk states, leases)
+HEARTBEAT = batch_lifecycle.HEARTBEAT
 
 # KEYS[6]: the chunk's outcomes key.
 # ARGV: id, chunk, attempt, n_done, n_failed, n_cancelled, failed_solves, best ('' = none),

@@ -12,13 +12,13 @@ from __future__ import annotations
 import json
 import math
 import time
-import zlib
 from dataclasses import dataclass
 from typing import Optional
 
 import redis
 
 from jobs import calibration_lifecycle as L
+from jobs.blob import pack_json as pack, unpack_json as unpack
 from jobs.keys import Keys, new_job_id
 from jobs.settings import Settings
 
@@ -101,12 +101,6 @@ def _record(cal_id: str, values: list) -> Optional[CalibrationRecord]:
         unknowns=json.loads(_s(d["unknowns"]) or "[]"), seed=_i(d["seed"]))
 
 
-def pack(obj) -> bytes:
-    return zlib.compress(json.dumps(obj, separators=(",", ":"), allow_nan=False).encode())
-
-
-def unpack(blob) -> Optional[dict]:
-    return None if blob is None else json.loads(zlib.decompress(blob))
 
 
 class CalibrationStore:

@@ -80,16 +80,11 @@ def as_json(job_id: str, blob: bytes, state: str | None = None, outcome: str | N
 
 def sensitivities(meta: dict, arrays: dict):
     """(labels, raw (k, n, m), normalised (k, n, m)) of a result that carries sensitivities,
-    else None. Normalised: d ln y_i / d ln θ_j = raw * θ_j / y_i, NaN where y_i or θ_j is 0."""
+    else None; both arrays as the worker stored them (engine.sensitivities.split)."""
     info = meta.get("sensitivity")
     if not info or "sensitivity" not in arrays:
         return None
-    raw, y = arrays["sensitivity"], arrays["y"]
-    theta = np.asarray(info["theta"], dtype=float)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        norm = raw * theta[None, None, :] / y[:, :, None]
-    norm[(y[:, :, None] == 0) | (theta[None, None, :] == 0) | ~np.isfinite(norm)] = np.nan
-    return list(info["wrt"]), raw, norm
+    return list(info["wrt"]), arrays["sensitivity"], arrays["sensitivity_normalised"]
 
 
 def _sensitivity_json(meta: dict, arrays: dict) -> dict | None:

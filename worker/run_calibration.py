@@ -26,7 +26,8 @@ from typing import Callable
 import numpy as np
 
 from jobs.blob import json_safe
-from jobs.calibration_store import CalibrationStore, pack
+from jobs.blob import pack_json as pack
+from jobs.calibration_store import CalibrationStore
 from schemas.calibration import CalibrationSpecSchema, Limits, problem_of
 from worker.run_job import Heartbeat
 

@@ -284,6 +284,7 @@ def _solve(store: JobStore, job_id: str, beat: Heartbeat):
     if sm is not None:
         _, sens_values = split(sm, sol.y, theta)
         arrays["sensitivity"] = sens_values.raw
+        arrays["sensitivity_normalised"] = sens_values.normalised  # the engine's, served as is
         meta["sensitivity"] = {"wrt": list(sm.wrt), "theta": [float(v) for v in theta],
                                "error_control": bool(sens["error_control"])}
         if sens.get("rank") and state == "succeeded":  # which parameters matter (calibration.ranking)
